@@ -1,0 +1,38 @@
+"""jointfmu: modal Iwan models of bolted, jointed structures as FMI 2.0 co-simulation FMUs.
+
+A fitted model is no substitute for qualification testing; defer to the applicable codes,
+standards and licensed engineering practice.
+"""
+from .errors import (BuildError, InputError, JointFmuError, ParameterError, Problem,
+                     SimulationError)
+from .params import (FORMAT, MODE_VALUE_NAMES, ROLES, Base, JointParams, Mode, ParameterSet, Point,
+                     Provenance, check_mode_values, check_parameter_file, load_parameter_set,
+                     parse_parameter_set, save_parameter_set)
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "__version__",
+    # errors
+    "JointFmuError",
+    "Problem",
+    "ParameterError",
+    "InputError",
+    "SimulationError",
+    "BuildError",
+    # params
+    "FORMAT",
+    "ROLES",
+    "MODE_VALUE_NAMES",
+    "JointParams",
+    "Mode",
+    "Point",
+    "Base",
+    "Provenance",
+    "ParameterSet",
+    "parse_parameter_set",
+    "load_parameter_set",
+    "save_parameter_set",
+    "check_parameter_file",
+    "check_mode_values",
+]
