@@ -144,7 +144,7 @@ def _did_you_mean(key: str, allowed: Iterable[str]) -> str:
     scored.sort()
     if not scored:
         return ""
-    best = [a for r, a in scored if r == scored[0][0]][:3]
+    best = [a for r, a in scored if r == scored[0][0]][:2]  # ties kept: "Ft" is as near "Fs" as "Kt"
     return "did you mean " + " or ".join(repr(a) for a in best) + "?"
 
 
@@ -206,8 +206,8 @@ def _check_joint(Fs: Any, Kt: Any, chi: Any, beta: Any, file: str, prefix: str,
     if chi_v is not None and not -1.0 < chi_v <= 0.0:
         problems.append(Problem(
             file, prefix + "chi", chi, "must satisfy -1 < chi <= 0",
-            "chi <= -1 makes Kt and Fs infinite; chi > 0 is outside the physical range "
-            "(Segalman 2005)"))
+            "chi <= -1 makes Kt and Fs infinite (Segalman 2005)" if chi_v <= -1.0 else
+            "chi > 0 is outside the physical range; chi = 0 is Goodman's cubic micro-slip law"))
     beta_v = _number(beta, file, prefix + "beta", "", problems)
     if beta_v is not None and not beta_v >= 0.0:
         problems.append(Problem(file, prefix + "beta", beta, "must satisfy beta >= 0"))
@@ -529,8 +529,9 @@ def _check_unique(items: list[Any], what: str, file: str, problems: list[Problem
             seen[lab] = i
 
 
-def _check_mass_sum(modes: Iterable[Mode], base: Base, file: str, problems: list[Problem]) -> None:
-    total = math.fsum(m.base_participation ** 2 for m in modes)
+def _check_mass_sum(gammas: Iterable[float], base: Base, file: str, problems: list[Problem]) -> None:
+    """sum(Gamma_i^2) <= total mass: effective modal masses cannot exceed the total mass."""
+    total = math.fsum(float(g) ** 2 for g in gammas)
     if total > base.total_mass:
         problems.append(Problem(
             file, "modes[*].base_participation", total,
@@ -567,7 +568,7 @@ def _check_set(name: Any, build: Any, description: Any, modes: Any, points: Any,
                     "only allowed when the set has a [base] table (a base-mounted structure)",
                     "add [base] with total_mass, or remove base_participation"))
     else:
-        _check_mass_sum(modes, base, file, problems)
+        _check_mass_sum([m.base_participation for m in modes], base, file, problems)
 
 
 @dataclass(frozen=True)
@@ -991,8 +992,10 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
                 problems.append(Problem(f, point_fields[k - 1] + ".shape", shape,
                                         f"must have one coefficient per mode: {n_modes} values, "
                                         f"got {len(shape)}"))
-    if base is not None and modes_ok:
-        _check_mass_sum(modes, base, f, problems)
+    if base is not None and isinstance(raw_modes, list):
+        # On the raw values, so the sum is checked even when some other mode value is broken.
+        gammas = [md.get("base_participation", 0.0) for md in raw_modes if isinstance(md, Mapping)]
+        _check_mass_sum([g for g in gammas if _is_number(g) and math.isfinite(g)], base, f, problems)
     _raise(problems)
     return ParameterSet(name=name, build=build, description=description,
                         provenance=Provenance(**prov_kw), modes=tuple(modes), points=tuple(points),
