@@ -1,0 +1,734 @@
+"""FMU packaging: ``jointfmu build``, ``info`` and ``simulate``.
+
+:func:`build_fmu` makes an FMI 2.0 co-simulation FMU of a parameter set with pythonfmu and then
+completes its ``modelDescription.xml`` (units, descriptions, ModelStructure, DefaultExperiment,
+the parameter-set identity), all from :func:`.variables.variable_table`.
+
+Names.  pythonfmu imports the slave module by the name in ``resources/slavemodule.txt`` and
+Python caches modules by name, so two FMUs loaded into one process with the same module name
+would both run whichever was imported first.  Every build therefore gets its own model
+identifier, module and class name ``Jfmu_<name>_<hash12>`` and carries the jointfmu package
+under its own name ``jfmu_core_<hash12>`` (all imports inside the package are relative), with
+``hash12`` from the parameter set's content hash and the bundled source.
+
+Resources of a built FMU::
+
+    resources/Jfmu_<name>_<hash12>.py    generated entry module (subclass of slave.JointSlave)
+    resources/jfmu_core_<hash12>/        the jointfmu package under its unique name
+    resources/parameters.toml            the parameter set (its content hash in the header)
+    resources/jointfmu_build.json        identity: set id, content hash, versions
+    resources/requirements.txt           what the host's Python needs
+    resources/pythonfmu/                 pythonfmu's own runtime (added by pythonfmu)
+
+Every file is written atomically (temp file in the target folder, then ``os.replace``): a failed
+build leaves nothing behind.
+"""
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import math
+import os
+import re
+import shutil
+import sys
+import tempfile
+import zipfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterable, Mapping, Sequence
+from xml.etree import ElementTree as ET
+
+from .errors import BuildError, InputError, JointFmuError
+from .params import ParameterSet, load_parameter_set
+from .slave import BUILD_INFO_FILE, PARAMETER_FILE
+from .variables import UNITS, variable_table
+
+__all__ = [
+    "BuildResult",
+    "build_fmu",
+    "fmu_names",
+    "default_output_path",
+    "read_fmu_info",
+    "format_fmu_info",
+    "run_fmu",
+    "read_input_csv",
+    "write_csv_atomic",
+    "HOST_REQUIREMENTS",
+]
+
+#: Python packages the host needs besides its interpreter (written to requirements.txt).  numba is
+#: the core's optional compiled fast path; without it the core falls back to plain NumPy.
+HOST_REQUIREMENTS = ("numpy>=1.24", "scipy>=1.10", "numba>=0.58 ; extra == 'fast'")
+
+_PACKAGE_DIR = Path(__file__).resolve().parent
+
+
+@dataclass(frozen=True)
+class BuildResult:
+    """What :func:`build_fmu` made.
+
+    Attributes
+    ----------
+    path : Path
+        The FMU file.
+    model_identifier : str
+        ``Jfmu_<name>_<hash12>``: model identifier, module and class name.
+    core_package : str
+        ``jfmu_core_<hash12>``: name of the bundled jointfmu package.
+    set_id : str
+        ``"<name>@<build>"`` of the parameter set.
+    content_hash : str
+        SHA-256 of the parameter set (:meth:`ParameterSet.content_hash`).
+    """
+
+    path: Path
+    model_identifier: str
+    core_package: str
+    set_id: str
+    content_hash: str
+
+
+# ---------------------------------------------------------------------------------- names
+def _core_files() -> list[Path]:
+    return sorted(p for p in _PACKAGE_DIR.glob("*.py") if p.is_file())
+
+
+def _source_hash() -> str:
+    h = hashlib.sha256()
+    for p in _core_files():
+        h.update(p.name.encode() + b"\0" + p.read_bytes() + b"\0")
+    return h.hexdigest()
+
+
+def fmu_names(params: ParameterSet) -> tuple[str, str, str]:
+    """Model identifier, core package name and hash12 of a build.
+
+    ``hash12`` is the first 12 hex digits of SHA-256 over the parameter set's content hash and
+    the bundled jointfmu source, so a new parameter set or a new jointfmu version gives new names.
+
+    Returns
+    -------
+    (str, str, str)
+        ``("Jfmu_<name>_<hash12>", "jfmu_core_<hash12>", hash12)``.
+    """
+    h = hashlib.sha256((params.content_hash() + ":" + _source_hash()).encode()).hexdigest()[:12]
+    return f"Jfmu_{params.name}_{h}", f"jfmu_core_{h}", h
+
+
+def _slug(text: str) -> str:
+    s = re.sub(r"[^A-Za-z0-9]+", "-", text).strip("-").lower()
+    return s or "build"
+
+
+def default_output_path(params: ParameterSet, cwd: Path | None = None) -> Path:
+    """``build/<name>_<build-slug>.fmu`` in the repository's ``build/`` when ``cwd`` is inside
+    the jointfmu repository, else in ``./build/``."""
+    cwd = Path.cwd() if cwd is None else Path(cwd)
+    folder = cwd / "build"
+    for d in (cwd, *cwd.parents):
+        pp = d / "pyproject.toml"
+        try:
+            if pp.is_file() and re.search(r'^name\s*=\s*"jointfmu"', pp.read_text(), re.M):
+                folder = d / "build"
+                break
+        except OSError:
+            continue
+    return folder / f"{params.name}_{_slug(params.build)}.fmu"
+
+
+# --------------------------------------------------------------------------------- build
+_ENTRY_TEMPLATE = '''\
+"""FMU entry module generated by jointfmu build {version} for parameter set {set_id!r}.
+
+Parameter-set content hash: sha256 {content_hash}.
+pythonfmu imports this module by the name in slavemodule.txt and shares modules by name inside a
+process, so module, class ({ident}) and the bundled jointfmu package ({core}) carry a name of
+their own.  The package is loaded from the folder beside this file with importlib.
+"""
+import importlib as _importlib
+import importlib.util as _ilu
+import sys as _sys
+from pathlib import Path as _Path
+
+_CORE = {core!r}
+
+
+def _load_core():
+    if _CORE in _sys.modules:
+        return _sys.modules[_CORE]
+    folder = _Path(__file__).resolve().parent / _CORE
+    spec = _ilu.spec_from_file_location(_CORE, folder / "__init__.py",
+                                        submodule_search_locations=[str(folder)])
+    module = _ilu.module_from_spec(spec)
+    _sys.modules[_CORE] = module
+    try:
+        spec.loader.exec_module(module)
+    except BaseException:
+        del _sys.modules[_CORE]
+        raise
+    return module
+
+
+_load_core()
+_slave = _importlib.import_module(_CORE + ".slave")
+
+
+class {ident}(_slave.JointSlave):
+    """Modal Iwan model {set_id!r} (jointfmu)."""
+'''
+
+
+def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None = None,
+              *, cwd: Path | None = None) -> BuildResult:
+    """Build the FMI 2.0 co-simulation FMU of a parameter file.
+
+    Parameters
+    ----------
+    params_path : path-like
+        A ``jointfmu-params/1`` TOML file.
+    output : path-like, optional
+        The ``.fmu`` to write; default :func:`default_output_path`.  Replaced atomically.
+    cwd : Path, optional
+        Folder that decides the default output (default the current folder).
+
+    Returns
+    -------
+    BuildResult
+
+    Raises
+    ------
+    ParameterError
+        The parameter file is invalid (nothing written).
+    BuildError
+        Packaging failed (nothing written, an existing ``output`` untouched).
+    """
+    params = load_parameter_set(params_path)
+    out = Path(output) if output is not None else default_output_path(params, cwd)
+    if out.suffix.lower() != ".fmu":
+        raise BuildError(f"output {str(out)!r} must end in '.fmu'")
+    ident, core, _ = fmu_names(params)
+    try:
+        from pythonfmu.builder import FmuBuilder
+    except ImportError as exc:  # pragma: no cover - pythonfmu is a dependency
+        raise BuildError(f"building an FMU needs pythonfmu: {exc}") from exc
+    if not FmuBuilder.has_binary():
+        raise BuildError("pythonfmu ships no FMU binary for this platform")
+
+    out.parent.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix="jointfmu_build_"))
+    tmp_fmu = None
+    path_added = str(staging / "src")
+    modules_before = set(sys.modules)
+    try:
+        src = staging / "src"
+        src.mkdir()
+        core_dir = src / core
+        core_dir.mkdir()
+        for f in _core_files():
+            shutil.copy2(f, core_dir / f.name)
+        (src / PARAMETER_FILE).write_text(params.to_toml(), encoding="utf-8")
+        info = _build_info(params, ident, core)
+        (src / BUILD_INFO_FILE).write_text(json.dumps(info, indent=2) + "\n", encoding="utf-8")
+        (src / "requirements.txt").write_text(
+            "# Python packages the FMU's host interpreter needs (pip install -r requirements.txt)\n"
+            + "".join(r + "\n" for r in HOST_REQUIREMENTS), encoding="utf-8")
+        script = src / f"{ident}.py"
+        script.write_text(_ENTRY_TEMPLATE.format(
+            version=_jointfmu_version(), set_id=params.set_id, content_hash=params.content_hash(),
+            ident=ident, core=core), encoding="utf-8")
+
+        raw = staging / f"{ident}.fmu"
+        FmuBuilder.build_FMU(
+            script, dest=raw,
+            project_files=[core_dir, src / PARAMETER_FILE, src / BUILD_INFO_FILE,
+                           src / "requirements.txt"],
+            canGetAndSetFMUstate=True, canSerializeFMUstate=True,
+            canHandleVariableCommunicationStepSize=True, canInterpolateInputs=False,
+            canBeInstantiatedOnlyOncePerProcess=False, needsExecutionTool=True)
+        fd, tmp_name = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent)
+        os.close(fd)
+        tmp_fmu = Path(tmp_name)
+        _complete_fmu(raw, tmp_fmu, params, ident, core)
+        os.replace(tmp_fmu, out)
+        tmp_fmu = None
+    except JointFmuError:
+        raise
+    except Exception as exc:
+        raise BuildError(f"building the FMU of {params.set_id!r} into {str(out)!r} failed: "
+                         f"{type(exc).__name__}: {exc}") from exc
+    finally:
+        if tmp_fmu is not None:
+            tmp_fmu.unlink(missing_ok=True)
+        shutil.rmtree(staging, ignore_errors=True)
+        # pythonfmu imported the entry module (and so the core) from the staging folder and left
+        # that folder on sys.path: forget both, so that loading the built FMU in this process
+        # imports it from the FMU's own resources.
+        while path_added in sys.path:
+            sys.path.remove(path_added)
+        for name in set(sys.modules) - modules_before:
+            if name == ident or name == core or name.startswith(core + "."):
+                del sys.modules[name]
+    return BuildResult(out, ident, core, params.set_id, params.content_hash())
+
+
+def _jointfmu_version() -> str:
+    try:
+        from importlib.metadata import version
+        return version("jointfmu")
+    except Exception:
+        return "0+unknown"
+
+
+def _pythonfmu_version() -> str:
+    try:
+        from pythonfmu import __version__
+        return str(__version__)
+    except Exception:
+        return "unknown"
+
+
+def _build_info(params: ParameterSet, ident: str, core: str) -> dict:
+    return {
+        "set_id": params.set_id,
+        "name": params.name,
+        "build": params.build,
+        "content_hash": params.content_hash(),
+        "model_identifier": ident,
+        "core_package": core,
+        "jointfmu_version": _jointfmu_version(),
+        "pythonfmu_version": _pythonfmu_version(),
+        "host_requirements": list(HOST_REQUIREMENTS),
+    }
+
+
+def _fmt(x: float) -> str:
+    # repr round-trips every double exactly (pythonfmu writes %.16g, which does not always)
+    return repr(float(x))
+
+
+def _default_experiment(params: ParameterSet) -> tuple[float, float]:
+    """(stopTime, stepSize): about 20 periods of the lowest mode, and a step of about a tenth of
+    the highest mode's period rounded down to 1, 2 or 5 times a power of ten."""
+    f = [m.f0 for m in params.modes]
+    stop = 20.0 / min(f)
+    step = 0.1 / max(f)
+
+    def nice(x: float, up: bool) -> float:
+        e = math.floor(math.log10(x))
+        for m in ((1, 2, 5, 10) if up else (10, 5, 2, 1)):
+            v = m * 10.0 ** e
+            if (up and v >= x) or (not up and v <= x):
+                return float(f"{v:.6g}")
+        return x
+    return nice(stop, True), nice(step, False)
+
+
+def _complete_fmu(raw: Path, dest: Path, params: ParameterSet, ident: str, core: str) -> None:
+    """Copy the pythonfmu archive ``raw`` to ``dest`` with a completed modelDescription.xml."""
+    with zipfile.ZipFile(raw) as zin:
+        xml = zin.read("modelDescription.xml")
+        root = _complete_model_description(ET.fromstring(xml), params, ident, core)
+        ET.indent(root)
+        text = ET.tostring(root, encoding="UTF-8", xml_declaration=True)
+        with zipfile.ZipFile(dest, "w", compression=zipfile.ZIP_DEFLATED) as zout:
+            zout.writestr("modelDescription.xml", text)
+            for item in zin.infolist():
+                if item.filename == "modelDescription.xml" or "__pycache__" in item.filename:
+                    continue
+                zout.writestr(item, zin.read(item.filename),
+                              compress_type=zipfile.ZIP_DEFLATED)
+
+
+def _complete_model_description(root: ET.Element, params: ParameterSet, ident: str,
+                                core: str) -> ET.Element:
+    """Units, descriptions, exact start values, ModelStructure, DefaultExperiment, identity.
+
+    Element order follows the FMI 2.0 schema (fmi2ModelDescription.xsd): CoSimulation,
+    UnitDefinitions, TypeDefinitions, LogCategories, DefaultExperiment, VendorAnnotations,
+    ModelVariables, ModelStructure.
+    """
+    table = variable_table(params)
+    cs = root.find("CoSimulation")
+    if cs is None or cs.get("modelIdentifier") != ident:
+        raise BuildError(f"pythonfmu wrote an unexpected model description (model identifier "
+                         f"{None if cs is None else cs.get('modelIdentifier')!r}, expected {ident!r})")
+    text = params.description.strip()
+    root.set("description", (text + " " if text else "")
+             + f"[jointfmu parameter set {params.set_id}, sha256 {params.content_hash()}]")
+    root.set("generationTool", f"jointfmu {_jointfmu_version()} (PythonFMU {_pythonfmu_version()})")
+    root.set("version", params.short_hash())
+    root.set("variableNamingConvention", "structured")
+    if params.provenance.fitted_by:
+        root.set("author", params.provenance.fitted_by)
+
+    for tag in ("UnitDefinitions", "DefaultExperiment", "VendorAnnotations", "ModelStructure"):
+        for el in root.findall(tag):
+            root.remove(el)
+    children = list(root)
+    pos = children.index(cs) + 1
+
+    units = ET.Element("UnitDefinitions")
+    for name in sorted({v.unit for v in table}):
+        u = ET.SubElement(units, "Unit", name=name)
+        exps = UNITS[name]
+        if exps is not None:
+            ET.SubElement(u, "BaseUnit", {k: str(v) for k, v in exps.items()})
+    root.insert(pos, units)
+
+    stop, step = _default_experiment(params)
+    mv = root.find("ModelVariables")
+    mv_pos = list(root).index(mv)
+    root.insert(mv_pos, ET.Element("DefaultExperiment", startTime="0.0", stopTime=_fmt(stop),
+                                   stepSize=_fmt(step)))
+    va = ET.Element("VendorAnnotations")
+    tool = ET.SubElement(va, "Tool", name="jointfmu")
+    ET.SubElement(tool, "ParameterSet", id=params.set_id, name=params.name, build=params.build,
+                  contentHash=params.content_hash(), modelIdentifier=ident, corePackage=core)
+    root.insert(mv_pos + 1, va)
+
+    scalars = mv.findall("ScalarVariable")
+    if [s.get("name") for s in scalars] != [v.name for v in table]:
+        raise BuildError("the slave registered other variables than the variable table lists")
+    for k, (sv, var) in enumerate(zip(scalars, table)):
+        if int(sv.get("valueReference")) != k:
+            raise BuildError(f"{var.name}: value reference {sv.get('valueReference')} != {k}")
+        sv.set("description", var.description)
+        sv.set("causality", var.causality)
+        sv.set("variability", var.variability)
+        if var.initial is None:
+            sv.attrib.pop("initial", None)
+        else:
+            sv.set("initial", var.initial)
+        real = sv.find("Real")
+        real.set("unit", var.unit)
+        if var.start is None:
+            real.attrib.pop("start", None)
+        else:
+            real.set("start", _fmt(var.start))
+
+    # FMI 2.0 sec. 2.2.8: every output in Outputs; InitialUnknowns lists the outputs with
+    # initial="approx" or "calculated" (here all of them), in value-reference order.  Outputs
+    # change only inside doStep, so no output depends directly on an input (dependencies="").
+    ms = ET.SubElement(root, "ModelStructure")
+    outputs = ET.SubElement(ms, "Outputs")
+    initial = ET.SubElement(ms, "InitialUnknowns")
+    for k, var in enumerate(table):
+        if var.is_output:
+            ET.SubElement(outputs, "Unknown", index=str(k + 1), dependencies="")
+            ET.SubElement(initial, "Unknown", index=str(k + 1))
+    return root
+
+
+# ---------------------------------------------------------------------------------- info
+def read_fmu_info(fmu_path: str | os.PathLike) -> dict:
+    """Identity, modes, interface and host requirements of a jointfmu FMU.
+
+    Returns
+    -------
+    dict
+        Keys ``path``, ``set_id``, ``content_hash``, ``model_identifier``, ``build_info``
+        (the bundled jointfmu_build.json), ``params`` (:class:`ParameterSet`), ``variables``
+        (list of dicts name, causality, unit, description, start), ``requirements`` (list of
+        str), ``default_experiment`` (dict).
+
+    Raises
+    ------
+    InputError
+        When the file is not an FMU built by jointfmu.
+    """
+    path = Path(fmu_path)
+    try:
+        with zipfile.ZipFile(path) as z:
+            names = set(z.namelist())
+            md = ET.fromstring(z.read("modelDescription.xml"))
+            for need in (f"resources/{PARAMETER_FILE}", f"resources/{BUILD_INFO_FILE}"):
+                if need not in names:
+                    raise InputError(f"{str(path)!r} is an FMU but not one built by jointfmu "
+                                     f"(no {need})")
+            info = json.loads(z.read(f"resources/{BUILD_INFO_FILE}"))
+            toml_text = z.read(f"resources/{PARAMETER_FILE}")
+            req = z.read("resources/requirements.txt").decode() \
+                if "resources/requirements.txt" in names else ""
+    except (OSError, zipfile.BadZipFile, KeyError, ET.ParseError) as exc:
+        raise InputError(f"{str(path)!r} is not a readable FMU: {exc}") from exc
+    with tempfile.TemporaryDirectory(prefix="jointfmu_info_") as d:
+        p = Path(d) / PARAMETER_FILE
+        p.write_bytes(toml_text)
+        params = load_parameter_set(p)
+    variables = []
+    for sv in md.iter("ScalarVariable"):
+        real = sv.find("Real")
+        variables.append({
+            "name": sv.get("name"), "causality": sv.get("causality"),
+            "unit": real.get("unit") if real is not None else None,
+            "start": real.get("start") if real is not None else None,
+            "description": sv.get("description", ""),
+        })
+    de = md.find("DefaultExperiment")
+    return {
+        "path": path,
+        "set_id": info.get("set_id", params.set_id),
+        "content_hash": info.get("content_hash"),
+        "hash_ok": info.get("content_hash") == params.content_hash(),
+        "model_identifier": info.get("model_identifier"),
+        "build_info": info,
+        "params": params,
+        "variables": variables,
+        "requirements": [ln.strip() for ln in req.splitlines()
+                         if ln.strip() and not ln.lstrip().startswith("#")],
+        "default_experiment": dict(de.attrib) if de is not None else {},
+    }
+
+
+def format_fmu_info(info: Mapping) -> str:
+    """Human-readable text of :func:`read_fmu_info`."""
+    p: ParameterSet = info["params"]
+    lines = [
+        f"FMU:               {info['path']}",
+        f"parameter set:     {info['set_id']}",
+        f"content hash:      sha256 {info['content_hash']}"
+        + ("" if info["hash_ok"] else "  (DOES NOT MATCH the bundled parameters)"),
+        f"model identifier:  {info['model_identifier']}",
+        f"built with:        jointfmu {info['build_info'].get('jointfmu_version')}, "
+        f"PythonFMU {info['build_info'].get('pythonfmu_version')}",
+    ]
+    if p.description:
+        lines.append(f"description:       {p.description}")
+    lines.append(f"modes ({p.n_modes}):")
+    lines.append(f"  {'#':>2} {'label':<12} {'f0 [Hz]':>12} {'zeta':>10} {'Fs [N/kg^0.5]':>14} "
+                 f"{'Kt [1/s2]':>12} {'chi':>8} {'beta':>8}")
+    for i, m in enumerate(p.modes, 1):
+        j = m.joint
+        lines.append(f"  {i:>2} {m.label:<12} {m.f0:>12.6g} {m.zeta:>10.4g} {j.Fs:>14.6g} "
+                     f"{j.Kt:>12.6g} {j.chi:>8.4g} {j.beta:>8.4g}")
+
+    def block(title, causality):
+        vs = [v for v in info["variables"] if v["causality"] == causality]
+        lines.append(f"{title} ({len(vs)}):")
+        width = max((len(v["name"]) for v in vs), default=0)
+        for v in vs:
+            lines.append(f"  {v['name']:<{width}}  [{v['unit']}]  {v['description']}")
+
+    block("parameters", "parameter")
+    block("inputs", "input")
+    block("outputs", "output")
+    de = info["default_experiment"]
+    if de:
+        lines.append("default experiment: " + ", ".join(f"{k}={v}" for k, v in de.items()))
+    lines.append("host requirements: a CPython "
+                 f"{sys.version_info.major}.{sys.version_info.minor}-compatible interpreter "
+                 "loaded in the host process, with: " + ", ".join(info["requirements"]))
+    return "\n".join(lines)
+
+
+# ------------------------------------------------------------------------------ simulate
+def read_input_csv(path: str | os.PathLike, allowed: Sequence[str]) -> tuple[list[float],
+                                                                              dict[str, list[float]]]:
+    """Read an input CSV: a ``time`` column [s] (strictly increasing) and input columns.
+
+    Parameters
+    ----------
+    path : path-like
+        The CSV file (header row, comma separated).
+    allowed : sequence of str
+        The FMU's input variable names.
+
+    Returns
+    -------
+    (list of float, dict of str -> list of float)
+        Times, shape (M,), and each input column, shape (M,).
+
+    Raises
+    ------
+    InputError
+        Naming the file, the bad column, row or value, and what is allowed.
+    """
+    path = Path(path)
+    allowed_text = "time, " + ", ".join(allowed) if allowed else "time"
+    try:
+        with open(path, newline="", encoding="utf-8") as f:
+            rows = list(csv.reader(f))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read input CSV {str(path)!r}: {exc}") from exc
+    rows = [r for r in rows if r and any(c.strip() for c in r)]
+    if not rows:
+        raise InputError(f"input CSV {str(path)!r} is empty: it needs a header row with "
+                         f"columns from: {allowed_text}")
+    header = [c.strip() for c in rows[0]]
+    if "time" not in header:
+        raise InputError(f"input CSV {str(path)!r} has no 'time' column; allowed columns: "
+                         f"{allowed_text}")
+    bad = [c for c in header if c != "time" and c not in allowed]
+    if bad:
+        raise InputError(f"input CSV {str(path)!r}: unknown column(s) {', '.join(map(repr, bad))}; "
+                         f"allowed columns: {allowed_text}")
+    dup = sorted({c for c in header if header.count(c) > 1})
+    if dup:
+        raise InputError(f"input CSV {str(path)!r}: column(s) {', '.join(map(repr, dup))} appear "
+                         "more than once")
+    cols: dict[str, list[float]] = {c: [] for c in header}
+    for n, row in enumerate(rows[1:], start=2):
+        if len(row) != len(header):
+            raise InputError(f"input CSV {str(path)!r} line {n}: {len(row)} fields, the header "
+                             f"has {len(header)}")
+        for c, cell in zip(header, row):
+            try:
+                x = float(cell)
+            except ValueError:
+                raise InputError(f"input CSV {str(path)!r} line {n}, column {c!r}: {cell!r} is "
+                                 "not a number") from None
+            if not math.isfinite(x):
+                raise InputError(f"input CSV {str(path)!r} line {n}, column {c!r}: {cell!r}; "
+                                 "allowed are finite numbers")
+            cols[c].append(x)
+    t = cols.pop("time")
+    if not t:
+        raise InputError(f"input CSV {str(path)!r} has a header but no data rows")
+    for n in range(1, len(t)):
+        if not t[n] > t[n - 1]:
+            raise InputError(f"input CSV {str(path)!r} line {n + 2}: time {t[n]!r} s does not "
+                             f"increase (previous {t[n - 1]!r} s); times must strictly increase")
+    return t, cols
+
+
+def run_fmu(fmu_path: str | os.PathLike, times: Sequence[float],
+            inputs: Mapping[str, Sequence[float]], stop_time: float | None = None,
+            step: float | None = None, start_values: Mapping[str, float] | None = None,
+            ) -> tuple[list[str], list[list[float]]]:
+    """Run a jointfmu FMU with fmpy, inputs held between the given times.
+
+    The input value at each communication point is that of the last row with ``time <= t``
+    (zero before the first row); the communication grid is ``start, start + step, ...`` with
+    every input time added, so a change in an input always starts a step.
+
+    Parameters
+    ----------
+    fmu_path : path-like
+    times : sequence of float, shape (M,)
+        Input times [s], strictly increasing.
+    inputs : mapping str -> sequence of float, each shape (M,)
+        Input variable name -> values.
+    stop_time : float, optional
+        Default the last input time, or the DefaultExperiment stopTime without inputs.
+    step : float, optional
+        Communication step [s]; default the DefaultExperiment stepSize.
+    start_values : mapping, optional
+        Parameter values to set at instantiation.
+
+    Returns
+    -------
+    (list of str, list of list of float)
+        Column names (``time`` then every output) and rows.
+
+    Raises
+    ------
+    InputError
+        Bad step or stop time.
+    SimulationError
+        A step failed (the FMU's log message included).
+    """
+    from fmpy import extract, read_model_description
+    from fmpy.fmi2 import FMU2Slave
+
+    from .errors import SimulationError
+
+    md = read_model_description(str(fmu_path))
+    by_name = {v.name: v for v in md.modelVariables}
+    de = md.defaultExperiment
+    if step is None:
+        step = float(de.stepSize) if de is not None and de.stepSize else 1e-3
+    if not (math.isfinite(step) and step > 0):
+        raise InputError(f"--step {step!r}: allowed is a finite step > 0 s")
+    if stop_time is None:
+        stop_time = float(times[-1]) if len(times) else float(de.stopTime if de else 1.0)
+    if not (math.isfinite(stop_time) and stop_time >= 0):
+        raise InputError(f"--stop-time {stop_time!r}: allowed is a finite time >= 0 s")
+    for name in inputs:
+        if name not in by_name or by_name[name].causality != "input":
+            allowed = [v.name for v in md.modelVariables if v.causality == "input"]
+            raise InputError(f"{name!r} is not an input of this FMU; inputs: {', '.join(allowed)}")
+    for name in (start_values or {}):
+        if name not in by_name or by_name[name].causality != "parameter":
+            allowed = [v.name for v in md.modelVariables if v.causality == "parameter"]
+            raise InputError(f"{name!r} is not a parameter of this FMU; parameters: "
+                             f"{', '.join(allowed)}")
+    outputs = [v for v in md.modelVariables if v.causality == "output"]
+    in_names = list(inputs)
+    in_vrs = [by_name[n].valueReference for n in in_names]
+    out_vrs = [v.valueReference for v in outputs]
+
+    n_steps = int(math.floor(stop_time / step + 1e-9))
+    grid = sorted({k * step for k in range(n_steps + 1)} | {float(t) for t in times
+                                                             if 0.0 < t < stop_time}
+                  | {float(stop_time)})
+    messages: list[str] = []
+
+    from fmpy.fmi2 import fmi2CallbackFunctions, fmi2CallbackLoggerTYPE, \
+        fmi2CallbackAllocateMemoryTYPE, fmi2CallbackFreeMemoryTYPE
+    from fmpy import calloc, free
+
+    def logger(env, instance, status, category, message):
+        messages.append(message.decode("utf-8", "replace"))
+
+    callbacks = fmi2CallbackFunctions()
+    callbacks.logger = fmi2CallbackLoggerTYPE(logger)
+    callbacks.allocateMemory = fmi2CallbackAllocateMemoryTYPE(calloc)
+    callbacks.freeMemory = fmi2CallbackFreeMemoryTYPE(free)
+
+    unzipdir = extract(str(fmu_path))
+    fmu = FMU2Slave(guid=md.guid, unzipDirectory=unzipdir,
+                    modelIdentifier=md.coSimulation.modelIdentifier, instanceName="jointfmu")
+    rows: list[list[float]] = []
+    try:
+        fmu.instantiate(callbacks=callbacks, loggingOn=True)
+        try:
+            for name, value in (start_values or {}).items():
+                fmu.setReal([by_name[name].valueReference], [float(value)])
+            fmu.setupExperiment(startTime=0.0)
+            fmu.enterInitializationMode()
+            fmu.exitInitializationMode()
+            row_idx = -1
+            for k, t in enumerate(grid):
+                while row_idx + 1 < len(times) and times[row_idx + 1] <= t + 1e-12:
+                    row_idx += 1
+                if in_vrs:
+                    vals = [inputs[n][row_idx] if row_idx >= 0 else 0.0 for n in in_names]
+                    fmu.setReal(in_vrs, vals)
+                if k == 0:
+                    rows.append([t] + list(fmu.getReal(out_vrs)))
+                if k + 1 == len(grid):
+                    break
+                try:
+                    fmu.doStep(currentCommunicationPoint=t, communicationStepSize=grid[k + 1] - t)
+                except Exception as exc:
+                    raise SimulationError(f"step at t = {t!r} s failed: "
+                                          + ("; ".join(messages[-3:]) or str(exc))) from None
+                rows.append([grid[k + 1]] + list(fmu.getReal(out_vrs)))
+            fmu.terminate()
+        finally:
+            fmu.freeInstance()
+    finally:
+        shutil.rmtree(unzipdir, ignore_errors=True)
+    return ["time"] + [v.name for v in outputs], rows
+
+
+def write_csv_atomic(path: str | os.PathLike, header: Sequence[str],
+                     rows: Iterable[Sequence[float]]) -> Path:
+    """Write a CSV atomically (temp file beside it, then ``os.replace``); floats with repr."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", newline="", encoding="utf-8") as f:
+            w = csv.writer(f)
+            w.writerow(header)
+            for r in rows:
+                w.writerow([repr(float(x)) for x in r])
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path

@@ -1,0 +1,243 @@
+"""The FMU class: a thin pythonfmu slave around :class:`.integrate.ModalSimulator`.
+
+Each built FMU carries a generated entry module whose class subclasses :class:`JointSlave` under a
+unique name (see :mod:`.build`).  The slave declares the variables of :func:`.variables.variable_table`,
+keeps the parameter and input values the host sets, and hands ``do_step`` to the core.
+
+pythonfmu 0.7.0 facts this class is written around (read in its source):
+
+- The builder instantiates the class once at build time, and ``fmi2Reset`` instantiates it anew,
+  so ``__init__`` only reads the parameter set and registers variables; the simulator is created
+  at ``exit_initialization_mode`` (or the first step).
+- A Python exception escaping any method becomes ``fmi2Fatal`` and the C wrapper drops its
+  references to the instance, so nothing here raises into the wrapper: problems are logged with
+  ``Fmi2Status.error`` and ``do_step`` returns False (the wrapper reports ``fmi2Discard``).
+- FMU states are whatever ``_get_fmu_state`` returns; ``_fmu_state_to_bytes`` and
+  ``_fmu_state_from_bytes`` are called on the class.  Here a state is an immutable ``bytes``.
+"""
+from __future__ import annotations
+
+import base64
+import json
+import math
+from pathlib import Path
+from typing import Any
+
+from pythonfmu import Fmi2Slave
+from pythonfmu.enums import Fmi2Causality, Fmi2Initial, Fmi2Status, Fmi2Variability
+from pythonfmu.variables import Real
+
+from .errors import JointFmuError
+from .params import load_parameter_set
+from .variables import variable_table
+
+__all__ = ["JointSlave", "PARAMETER_FILE", "BUILD_INFO_FILE"]
+
+#: Resource file names written by :mod:`.build`.
+PARAMETER_FILE = "parameters.toml"
+BUILD_INFO_FILE = "jointfmu_build.json"
+
+_STATE_MAGIC = "jointfmu-state-1"
+
+
+class JointSlave(Fmi2Slave):
+    """FMI 2.0 co-simulation slave of one modal Iwan model.
+
+    Parameters
+    ----------
+    **kwargs
+        As pythonfmu passes them: ``instance_name``, ``resources`` (the FMU's resources folder,
+        holding :data:`PARAMETER_FILE`), ``visible``, ``logger``.
+    """
+
+    def __init__(self, **kwargs):
+        super().__init__(**kwargs)
+        resources = Path(self.resources) if self.resources else Path(".")
+        self._params0 = load_parameter_set(resources / PARAMETER_FILE)
+        self._table = variable_table(self._params0)
+        self.description = getattr(self._params0, "description", None) or None
+        # Values set by the host, indexed like the table (outputs keep None).
+        self._values: list[Any] = [v.start for v in self._table]
+        self._param_vrs = [k for k, v in enumerate(self._table) if v.kind == "parameter"]
+        self._steps_vr = next(k for k, v in enumerate(self._table) if v.kind == "steps_per_period")
+        self._input_vrs = {kind: [k for k, v in enumerate(self._table) if v.kind == kind]
+                           for kind in ("modal_force", "point_force", "base_acc")}
+        self._sim = None
+        self._active = None          # (parameter values, steps) the simulator was built with
+        self._init_error: str | None = None
+        self._initialized = False
+        for vr, var in enumerate(self._table):
+            self.register_variable(self._real(vr, var), nested=False)
+            if self.vars[vr].value_reference != vr:  # build time: pythonfmu numbering changed
+                raise RuntimeError("value references out of step with the variable table")
+
+    # ----------------------------------------------------------------------------- variables
+    def _real(self, vr: int, var) -> Real:
+        initial = Fmi2Initial[var.initial] if var.initial else None
+        if var.is_output:
+            getter = self._output_getter(var)
+            setter = self._refuse_setter(var)
+        else:
+            getter = (lambda vr=vr: self._values[vr])
+            setter = (lambda value, vr=vr: self._set_value(vr, value))
+        return Real(var.name, start=var.start, causality=Fmi2Causality[var.causality],
+                    variability=Fmi2Variability[var.variability], initial=initial,
+                    description=var.description, getter=getter, setter=setter)
+
+    def _output_getter(self, var):
+        kind, index = var.kind, var.index
+
+        def get() -> float:
+            sim = self._sim
+            if sim is None:
+                return 0.0
+            try:
+                value = getattr(sim, kind)
+                return float(value if index is None else value[index])
+            except Exception:       # never raise into the C wrapper
+                return math.nan
+        return get
+
+    def _refuse_setter(self, var):
+        def refuse(value) -> None:
+            self.log(f"{var.name} is an output and cannot be set (value {value!r} ignored)",
+                     Fmi2Status.error)
+        return refuse
+
+    def _set_value(self, vr: int, value: float) -> None:
+        var = self._table[vr]
+        if var.is_parameter and self._initialized:
+            self.log(f"parameter {var.name} can only be set before initialization ends "
+                     f"(value {value!r} ignored); instantiate anew or reset to change it",
+                     Fmi2Status.error)
+            return
+        self._values[vr] = float(value)
+
+    # ------------------------------------------------------------------------- life cycle
+    def exit_initialization_mode(self):
+        self._initialized = True
+        self._ensure_simulator()
+
+    def do_step(self, current_time: float, step_size: float) -> bool:
+        try:
+            if not self._ensure_simulator():
+                self.log(f"cannot step: {self._init_error}", Fmi2Status.error)
+                return False
+            if not (math.isfinite(step_size) and step_size >= 0.0):
+                self.log(f"communication step size {step_size!r} at t = {current_time!r} s is "
+                         "invalid: allowed is a finite step >= 0 s", Fmi2Status.error)
+                return False
+            try:
+                self._push_inputs()
+            except JointFmuError as exc:
+                self.log(f"input at t = {current_time!r} s rejected, step not taken, state kept: "
+                         f"{exc}", Fmi2Status.error)
+                return False
+            ok, message = self._sim.step(step_size)
+            if not ok:
+                self.log(f"step from t = {current_time!r} s by {step_size!r} s failed, state kept: "
+                         f"{message}", Fmi2Status.error)
+                return False
+            return True
+        except Exception as exc:     # a bug, still never across the C boundary
+            self.log(f"internal error in do_step at t = {current_time!r} s, state kept: "
+                     f"{type(exc).__name__}: {exc}", Fmi2Status.error)
+            return False
+
+    def _push_inputs(self) -> None:
+        import numpy as np
+
+        vals = self._values
+        kwargs = {}
+        if self._input_vrs["modal_force"]:
+            kwargs["modal_forces"] = np.array([vals[k] for k in self._input_vrs["modal_force"]])
+        if self._input_vrs["point_force"]:
+            kwargs["point_forces"] = np.array([vals[k] for k in self._input_vrs["point_force"]])
+        if self._input_vrs["base_acc"]:
+            kwargs["base_acc"] = float(vals[self._input_vrs["base_acc"][0]])
+        self._sim.set_inputs(**kwargs)
+
+    def _current_settings(self):
+        return (tuple(self._values[k] for k in self._param_vrs), self._values[self._steps_vr])
+
+    def _ensure_simulator(self) -> bool:
+        """Build the simulator for the current parameter values; False (and a logged error) if
+        they are out of range."""
+        settings = self._current_settings()
+        if self._sim is not None and settings == self._active:
+            return True
+        if self._init_error is not None and settings == self._active:
+            return False
+        self._active = settings
+        self._sim = None
+        try:
+            params = self._effective_params()
+            from .integrate import ModalSimulator  # its range check names steps_per_period
+            self._sim = ModalSimulator(params, steps_per_period=self._values[self._steps_vr])
+        except JointFmuError as exc:
+            self._init_error = str(exc)
+            self.log(f"parameters out of range at initialization: {exc}", Fmi2Status.error)
+            return False
+        except Exception as exc:
+            self._init_error = f"{type(exc).__name__}: {exc}"
+            self.log(f"could not set up the simulation: {self._init_error}", Fmi2Status.error)
+            return False
+        self._init_error = None
+        return True
+
+    def _effective_params(self):
+        changes = {}
+        for k in self._param_vrs:
+            var = self._table[k]
+            if self._values[k] != var.start or not math.isfinite(self._values[k]):
+                changes[(var.index + 1, var.field)] = self._values[k]  # 1-based in params
+        if not changes:
+            return self._params0
+        return self._params0.with_mode_values(changes)
+
+    # ----------------------------------------------------------------------------- states
+    def _get_fmu_state(self) -> bytes:
+        header = {
+            "magic": _STATE_MAGIC,
+            "parameter_set": self._identity(),
+            "values": self._values,
+            "initialized": self._initialized,
+            "core": None,
+        }
+        if self._sim is not None:
+            header["core"] = base64.b64encode(self._sim.get_state()).decode("ascii")
+        # json keeps every float bit for bit (shortest repr round-trips); NaN is allowed.
+        return json.dumps(header).encode("utf-8")
+
+    def _set_fmu_state(self, state) -> None:
+        try:
+            data = json.loads(bytes(state).decode("utf-8"))
+            if not isinstance(data, dict) or data.get("magic") != _STATE_MAGIC:
+                raise ValueError("not a jointfmu FMU state")
+            if data["parameter_set"] != self._identity():
+                raise ValueError(f"state of parameter set {data['parameter_set']}, this FMU "
+                                 f"is {self._identity()}")
+            values = data["values"]
+            if len(values) != len(self._values):
+                raise ValueError("state has a different number of variables")
+        except Exception as exc:
+            self.log(f"FMU state rejected, current state kept: {exc}", Fmi2Status.error)
+            return
+        self._values = [None if v is None else float(v) for v in values]
+        self._initialized = bool(data["initialized"])
+        self._sim, self._active, self._init_error = None, None, None
+        if data["core"] is not None and self._ensure_simulator():
+            self._sim.set_state(base64.b64decode(data["core"]))
+
+    @staticmethod
+    def _fmu_state_to_bytes(state) -> bytes:
+        return bytes(state)
+
+    @staticmethod
+    def _fmu_state_from_bytes(data) -> bytes:
+        return bytes(data)
+
+    def _identity(self) -> str:
+        p = self._params0
+        return f"{p.set_id}:{p.content_hash()}"
+
