@@ -70,6 +70,7 @@ MODE_VALUE_NAMES = ("f0", "zeta", "Fs", "Kt", "chi", "beta")
 
 _LABEL_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 _LABEL_RULE = "must match ^[A-Za-z][A-Za-z0-9_]*$ (a letter, then letters, digits or '_')"
+_LABEL_WHAT = "a label: a letter, then letters, digits or '_'"
 _TWO_PI = 2.0 * math.pi
 _PYTHON = "<python>"  # the "file" of a dataclass built directly in Python
 
@@ -174,7 +175,7 @@ def _text(x: Any, file: str, fld: str, problems: list[Problem], *, required_none
 
 def _label(x: Any, file: str, fld: str, problems: list[Problem]) -> str | None:
     if not isinstance(x, str):
-        problems.append(Problem(file, fld, x, f"must be a string that {_LABEL_RULE[5:]}, got {_type_name(x)}"))
+        problems.append(Problem(file, fld, x, f"{_LABEL_RULE}, got {_type_name(x)}"))
         return None
     if not _LABEL_RE.match(x):
         problems.append(Problem(file, fld, x, _LABEL_RULE))
@@ -199,14 +200,15 @@ def _check_joint(Fs: Any, Kt: Any, chi: Any, beta: Any, file: str, prefix: str,
             problems.append(Problem(
                 file, prefix + "Kt", Kt,
                 f"must satisfy 0 < Kt < (2 pi f0)^2 = {_g(kt_max)} 1/s^2 (f0 = {_g(f0)} Hz)",
-                "the joint cannot be stiffer than the whole mode: Kinf = (2 pi f0)^2 - Kt must be > 0"))
+                "the joint cannot be stiffer than the whole mode: Kinf = (2 pi f0)^2 - Kt must be > 0"
+                if Kt_v >= kt_max else ""))
         elif kt_max is None and not Kt_v > 0.0:
             problems.append(Problem(file, prefix + "Kt", Kt, "must satisfy Kt > 0 1/s^2"))
     chi_v = _number(chi, file, prefix + "chi", "", problems)
     if chi_v is not None and not -1.0 < chi_v <= 0.0:
         problems.append(Problem(
             file, prefix + "chi", chi, "must satisfy -1 < chi <= 0",
-            "chi <= -1 makes Kt and Fs infinite (Segalman 2005)" if chi_v <= -1.0 else
+            "chi <= -1 makes Kt and Fs infinite, Segalman 2005" if chi_v <= -1.0 else
             "chi > 0 is outside the physical range; chi = 0 is Goodman's cubic micro-slip law"))
     beta_v = _number(beta, file, prefix + "beta", "", problems)
     if beta_v is not None and not beta_v >= 0.0:
@@ -537,9 +539,9 @@ def _check_mass_sum(gammas: Iterable[float], base: Base, file: str, problems: li
             file, "modes[*].base_participation", total,
             f"the sum of base_participation^2 (effective modal masses) = {_g(total)} kg must not "
             f"exceed base.total_mass = {_g(base.total_mass)} kg",
-            "the effective modal masses of all modes add up to at most the total mass (common "
-            "practice; Craig and Kurdila, Fundamentals of Structural Dynamics, 2006, modal "
-            "effective mass)"))
+            "the effective modal masses of all modes add up to at most the total mass; common "
+            "practice, Craig and Kurdila, Fundamentals of Structural Dynamics, 2006, modal "
+            "effective mass"))
 
 
 def _check_set(name: Any, build: Any, description: Any, modes: Any, points: Any, base: Any,
@@ -887,7 +889,7 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
     st = _table(data, "structure", f, problems, required=True)
     if st is not None:
         _check_keys(st, _STRUCTURE_KEYS, "[structure]", "structure.", f, problems)
-        name = _required(st, "name", f, "structure.name", "structure name, " + _LABEL_RULE[5:], problems)
+        name = _required(st, "name", f, "structure.name", "structure name, " + _LABEL_WHAT, problems)
         build = _required(st, "build", f, "structure.build", "build or serial id, free text", problems)
         description = st.get("description", "")
         if isinstance(description, (date, datetime, time)):
@@ -958,7 +960,7 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
             point_fields.append(pre)
             _check_keys(pd, _POINT_KEYS, "[[points]]", pre + ".", f, problems)
             n_before = len(problems)
-            lab = _required(pd, "label", f, pre + ".label", _LABEL_RULE[5:], problems)
+            lab = _required(pd, "label", f, pre + ".label", _LABEL_WHAT, problems)
             if lab is not None:
                 _label(lab, f, pre + ".label", problems)
             role = _required(pd, "role", f, pre + ".role", "one of 'input', 'output', 'both'", problems)
@@ -1007,7 +1009,7 @@ def _parse_mode(i: int, md: Mapping[str, Any], has_base: bool, f: str,
     pre = _mode_prefix(i, md.get("label"))
     n_before = len(problems)
     _check_keys(md, _MODE_KEYS, "[[modes]]", pre + ".", f, problems)
-    lab = _required(md, "label", f, pre + ".label", _LABEL_RULE[5:], problems)
+    lab = _required(md, "label", f, pre + ".label", _LABEL_WHAT, problems)
     if lab is not None:
         _label(lab, f, pre + ".label", problems)
     f0 = _required(md, "f0", f, pre + ".f0", "low-amplitude natural frequency in Hz, > 0", problems)
