@@ -1,0 +1,79 @@
+"""All errors jointfmu raises on purpose.
+
+One base class, :class:`JointFmuError`; each subclass is also the builtin that fits, so callers can
+catch ``ValueError`` or ``RuntimeError`` as usual.  Each carries structured fields as well as a
+message that says what is wrong and what is allowed.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+__all__ = [
+    "JointFmuError",
+    "Problem",
+    "ParameterError",
+    "InputError",
+    "SimulationError",
+    "BuildError",
+]
+
+
+class JointFmuError(Exception):
+    """Base class of every error jointfmu raises on purpose."""
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong in a parameter set.
+
+    Attributes
+    ----------
+    file : str
+        Where the value came from (a path, ``"<dict>"`` or ``"FMU parameter"``).
+    field : str
+        Dotted location of the value, e.g. ``"modes[2].joint.chi"``.
+    value : Any
+        The offending value as given.
+    allowed : str
+        What would have been accepted, e.g. ``"-1 < chi <= 0"``.
+    hint : str
+        Optional extra advice (a did-you-mean suggestion, say).
+    """
+
+    file: str
+    field: str
+    value: Any
+    allowed: str
+    hint: str = ""
+
+    def __str__(self) -> str:
+        text = f"{self.file}: {self.field} = {self.value!r}: {self.allowed}"
+        if self.hint:
+            text += f" ({self.hint})"
+        return text
+
+
+class ParameterError(JointFmuError, ValueError):
+    """A parameter set (file, dict or FMU parameters) is invalid.
+
+    ``problems`` lists every problem found, not only the first.
+    """
+
+    def __init__(self, problems: Sequence[Problem]):
+        self.problems = tuple(problems)
+        n = len(self.problems)
+        head = f"{n} problem{'s' if n != 1 else ''} in parameter set"
+        super().__init__(head + ":\n" + "\n".join(f"  - {p}" for p in self.problems))
+
+
+class InputError(JointFmuError, ValueError):
+    """An input to a simulation (force, acceleration, step size, CSV column...) is invalid."""
+
+
+class SimulationError(JointFmuError, RuntimeError):
+    """A time step could not be completed; the state from before the step is kept."""
+
+
+class BuildError(JointFmuError, RuntimeError):
+    """An FMU could not be built; nothing was left behind."""
