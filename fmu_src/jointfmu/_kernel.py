@@ -1,0 +1,330 @@
+"""The per-step hot loop: exact Iwan joint memory and the modal time step.
+
+Everything here is plain scalar Python on NumPy arrays, written so that a compiler (Numba) can take
+it unchanged: no Python objects, no allocation inside the loops.  ``integrate.py`` owns the arrays
+and calls :func:`advance`; ``iwan.py`` calls :func:`joint_move` for a single joint.
+
+Joint model
+-----------
+Segalman's four-parameter Iwan joint (D. J. Segalman, "A four-parameter Iwan model for lap-type
+joints", J. Appl. Mech. 72(5):752-760, 2005) is a parallel array of Jenkins elements with the
+power-law density rho(phi) = R phi^chi on (0, phimax) plus a point mass S at phimax.  It obeys
+Masing's rules with wiping-out, so the force is evaluated in closed form from the virgin curve
+(backbone) F_bb and a stack of reversal points (u_r, F_r):
+
+    virgin curve       F = F_bb(u)
+    after a reversal   F = F_r + 2 F_bb((u - u_r)/2)
+
+(physics sheet, sec. 2-3: Masing branches hold exactly for this model; the extended rules delete
+the pair (u_{n-1}, u_n) once u passes u_{n-1}, and the first reversal u_1 once u passes -u_1).
+
+With x = |u - u_r| / c (c = 1 on the virgin curve, 2 on a Masing branch) and p = x^(chi+2):
+
+    F_bb(x) = Kt x - R p / ((chi+1)(chi+2))                 x < phimax, else Fs
+    tangent = Kt - R x^(chi+1) / (chi+1)                    x < phimax, else 0
+    dissipation on the branch   c * Dv(x),  Dv(x) = R x p / ((chi+2)(chi+3)), beyond phimax
+                                Dv(phimax) + Fs (x - phimax)
+    stored energy, virgin       Uv(x) = Kt x^2 / 2 - R x p / ((chi+1)(chi+3)),  beyond phimax Uv(phimax)
+    stored energy, Masing       U = U_r + (u - u_r)(F + F_r) / 2
+
+The dissipation forms follow from each Jenkins element dissipating phi |dx| while it slips (the
+per-cycle value 4 R A^(chi+3)/((chi+2)(chi+3)) is Segalman's closed form); the stored-energy forms
+are derived here from U = int rho(phi) e_phi^2 / 2 dphi with the nested memory of Masing models.
+One power per evaluation serves force, dissipation and energy.
+
+Bounded memory.  Wiping-out removes closed loops.  A decaying oscillation still nests a new, smaller
+loop every half cycle, so a pair of reversals is also dropped when the force error it would cause,
+|F_top - F_alt(u_top)| with F_alt the branch two reversals down, is below ``merge_tol`` (an absolute
+force, ``merge_tol_rel * Fs`` in :mod:`integrate`).  If the stack is full all the same, the innermost
+pair is dropped and counted as a forced merge.
+
+Time step (per mode, mass-normalized)
+-------------------------------------
+    q'' + 2 zeta w0 q' + w0^2 q = f - g,    g = F_J(q) - Kt q
+
+The linear part (with the full low-amplitude stiffness w0^2) is propagated exactly over the step
+(exponential integrator); the held input f is constant over it, and g, the nonlinear remainder, is
+expanded to second order about the start of the step with its derivatives known exactly from the
+joint: g' = (k_t - Kt) q', g'' = (dk_t/du) q'^2 + (k_t - Kt) q''.  The step is then
+
+    x1 = Phi x0 + Gamma0 (f - g) - Gamma1 g' - Gamma2 g''/2,   Gamma_j = int_0^h e^(A(h-s)) b s^j ds
+
+an exponential Taylor (Lawson/ETD-type) scheme (S. M. Cox and P. C. Matthews, "Exponential time
+differencing for stiff systems", J. Comput. Phys. 176(2):430-455, 2002, sec. 2, with the history
+terms replaced by exact derivatives).  It is exact in the linear limit (g = 0), of third order
+where g is smooth and of second order overall, since g'' jumps at each reversal and, for
+beta > 0, g' jumps at the onset of macro-slip.  The joint sees the path through the step's end
+points, with the displacement extremum inserted where the velocity changes sign inside the step
+(constant-acceleration estimate), so reversals are located to third order in the step.
+"""
+from __future__ import annotations
+
+import math
+
+# Indices into the per-mode constant table ``jc`` (shape (N, NJC)).
+KT, FS, CHI, PHIMAX, CF, CD, CUV, CK, DVPM, UVPM, MERGE_TOL, E2, KINF, SPOINT = range(14)
+NJC = 14
+
+# Indices into the per-mode scalar joint state ``js`` (shape (N, NJS)).
+U_PREV, F_PREV, E_PREV, D_ACC, D_PREV, DIRN, DEPTH, N_MERGE, N_FORCED, LOW, KTAN, KCURV = range(12)
+NJS = 12
+
+
+def _branch(x, jc, i):
+    """Backbone force, dissipation Dv, virgin stored energy Uv, tangent and its slope at ``x >= 0``.
+
+    Returns ``(F_bb, Dv, Uv, k_t, dk_t/dx)`` for mode ``i``; one power evaluation.
+    """
+    if x < jc[i, PHIMAX]:
+        if x > 0.0:
+            p = math.pow(x, jc[i, E2])
+            fbb = jc[i, KT] * x - jc[i, CF] * p
+            dv = jc[i, CD] * x * p
+            uv = 0.5 * jc[i, KT] * x * x - jc[i, CUV] * x * p
+            y = p / x  # x^(chi+1)
+            kt = jc[i, KT] - jc[i, CK] * y
+            kc = -jc[i, CK] * (jc[i, E2] - 1.0) * y / x
+            return fbb, dv, uv, kt, kc
+        return 0.0, 0.0, 0.0, jc[i, KT], 0.0
+    return jc[i, FS], jc[i, DVPM] + jc[i, FS] * (x - jc[i, PHIMAX]), jc[i, UVPM], 0.0, 0.0
+
+
+def _root(i, js, stk):
+    """Current branch root ``(u_r, F_r, U_r, c)``; (0, 0, 0, 1) on the virgin curve."""
+    d = int(js[i, DEPTH])
+    if d == 0:
+        return 0.0, 0.0, 0.0, 1.0
+    return stk[i, d - 1, 0], stk[i, d - 1, 1], stk[i, d - 1, 2], 2.0
+
+
+def _eval_at(i, u, jc, js, stk):
+    """Joint force, total dissipation, stored energy and tangent at ``u`` on the current branch.
+
+    Also leaves the tangent and its slope d(k_t)/du there in ``js[i, KTAN]``, ``js[i, KCURV]``.
+    """
+    ur, fr, er, c = _root(i, js, stk)
+    du = u - ur
+    x = abs(du) / c
+    fbb, dv, uv, kt, kc = _branch(x, jc, i)
+    s = 1.0 if du >= 0.0 else -1.0
+    f = fr + s * c * fbb
+    d = js[i, D_ACC] + c * dv
+    if c == 1.0:
+        e = uv
+    else:
+        e = er + 0.5 * du * (f + fr)
+    js[i, KTAN] = kt
+    js[i, KCURV] = kc * s / c
+    return f, d, e, kt
+
+
+def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
+    """Drop stack entries down to ``new_depth`` and keep the dissipation continuous at ``u``.
+
+    Entries are never erased, only left above the depth; before any entry that was live at the
+    start of the step can be overwritten by a later push it is copied to ``bk``, so a failed step
+    can be undone exactly (``js[i, LOW]`` is the lowest depth reached in this step).
+    """
+    low = int(js[i, LOW])
+    if new_depth < low:
+        for j in range(new_depth, low):
+            bk[i, j, 0] = stk[i, j, 0]
+            bk[i, j, 1] = stk[i, j, 1]
+            bk[i, j, 2] = stk[i, j, 2]
+        js[i, LOW] = new_depth
+    js[i, DEPTH] = new_depth
+    ur, fr, er, c = _root(i, js, stk)
+    x = abs(u - ur) / c
+    fbb, dv, uv, kt, kc = _branch(x, jc, i)
+    js[i, D_ACC] = d_total - c * dv
+
+
+def joint_move(i, u, jc, js, stk, bk):
+    """Move joint ``i`` monotonically from ``js[i, U_PREV]`` to ``u``; update its memory.
+
+    Parameters
+    ----------
+    i : int
+        Mode (joint) index.
+    u : float
+        New joint displacement (modal coordinate).
+    jc : ndarray, shape (N, NJC)
+        Joint constants.
+    js : ndarray, shape (N, NJS)
+        Scalar joint state, updated in place.
+    stk : ndarray, shape (N, capacity, 3)
+        Reversal stack: displacement, force and stored energy at each reversal.
+    bk : ndarray, shape (N, capacity, 3)
+        Backup of stack entries a step has dropped (see :func:`_lower_depth`).
+
+    Returns
+    -------
+    tangent : float
+        Tangent stiffness dF/du at ``u``.
+    """
+    u0 = js[i, U_PREV]
+    step = u - u0
+    if step == 0.0:
+        f, d, e, kt = _eval_at(i, u, jc, js, stk)
+        return kt
+    dnew = 1.0 if step > 0.0 else -1.0
+    dirn = js[i, DIRN]
+    cap = stk.shape[1]
+    if dirn != 0.0 and dnew != dirn:
+        # reversal at u0: push it
+        depth = int(js[i, DEPTH])
+        if depth >= cap:
+            # full: drop the innermost pair first (counted; see module docstring)
+            _lower_depth(i, depth - 2, u0, js[i, D_PREV], jc, js, stk, bk)
+            js[i, N_FORCED] += 1.0
+            depth -= 2
+            f, d, e, kt = _eval_at(i, u0, jc, js, stk)
+            js[i, F_PREV] = f
+            js[i, E_PREV] = e
+        stk[i, depth, 0] = u0
+        stk[i, depth, 1] = js[i, F_PREV]
+        stk[i, depth, 2] = js[i, E_PREV]
+        js[i, DEPTH] = depth + 1.0
+        js[i, D_ACC] = js[i, D_PREV]
+        # a loop too small to matter: drop the pair (u_{n-1}, u_n) if the branch from u_{n-2}
+        # passes within merge_tol of F_n at u_n
+        if depth >= 2:
+            ur = stk[i, depth - 2, 0]
+            du2 = u0 - ur
+            fbb, dv, uv, kt, kc = _branch(abs(du2) * 0.5, jc, i)
+            falt = stk[i, depth - 2, 1] + (2.0 if du2 >= 0.0 else -2.0) * fbb
+            if abs(falt - js[i, F_PREV]) <= jc[i, MERGE_TOL]:
+                _lower_depth(i, depth - 1, u0, js[i, D_PREV], jc, js, stk, bk)
+                js[i, N_MERGE] += 1.0
+    js[i, DIRN] = dnew
+    # wiping-out: pop every loop the motion has closed
+    while True:
+        depth = int(js[i, DEPTH])
+        if depth == 0:
+            break
+        if depth >= 2:
+            uc = stk[i, depth - 2, 0]
+        else:
+            uc = -stk[i, 0, 0]
+        if (u - uc) * dnew <= 0.0:
+            break
+        # dissipation at the closure point on the branch that closes
+        f, d, e, kt = _eval_at(i, uc, jc, js, stk)
+        _lower_depth(i, depth - 2 if depth >= 2 else 0, uc, d, jc, js, stk, bk)
+    f, d, e, kt = _eval_at(i, u, jc, js, stk)
+    js[i, U_PREV] = u
+    js[i, F_PREV] = f
+    js[i, E_PREV] = e
+    js[i, D_PREV] = d
+    return kt
+
+
+def joint_set_virgin(i, u, jc, js):
+    """Put joint ``i`` on its virgin curve at ``u``, reached by monotone loading from 0.
+
+    The dissipation counter starts at zero here (the loading is before the record starts).
+    """
+    x = abs(u)
+    fbb, dv, uv, kt, kc = _branch(x, jc, i)
+    s = 1.0 if u >= 0.0 else -1.0
+    js[i, U_PREV] = u
+    js[i, F_PREV] = s * fbb
+    js[i, E_PREV] = uv
+    js[i, D_ACC] = -dv
+    js[i, D_PREV] = 0.0
+    js[i, DIRN] = 0.0 if u == 0.0 else s
+    js[i, DEPTH] = 0.0
+    js[i, KTAN] = kt
+    js[i, KCURV] = kc * s
+
+
+def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
+    """Correct a step that crosses the onset of macro-slip on the current branch (beta > 0).
+
+    There the joint's tangent drops from S (the point mass of the density) to 0, a jump in g'
+    that the Taylor expansion of the step cannot see.  With tau* the crossing time and v* the
+    velocity there, the forcing gains S v* (t - tau*) after it, which adds
+    S v* (h - tau*)^2 / 2 to the velocity and S v* (h - tau*)^3 / 6 to the displacement (leading
+    terms).  Returns the corrected displacement and the velocity change.
+    """
+    dirn = 1.0 if v0 > 0.0 else -1.0
+    ur, fr, er, c = _root(i, js, stk)
+    x0 = abs(q0 - ur) / c
+    if x0 >= jc[i, PHIMAX] or (q0 - ur) * dirn < 0.0:
+        return q1, 0.0
+    us = ur + dirn * c * jc[i, PHIMAX]
+    if (q1 - us) * dirn <= 0.0:
+        return q1, 0.0
+    depth = int(js[i, DEPTH])
+    if depth >= 1:
+        uc = stk[i, depth - 2, 0] if depth >= 2 else -stk[i, 0, 0]
+        if (us - uc) * dirn > 0.0:
+            return q1, 0.0  # the branch closes before its onset
+    # crossing time from q0 + v0 t + a0 t^2 / 2 = us (root nearest 0 in [0, h])
+    d = us - q0
+    disc = v0 * v0 + 2.0 * a0 * d
+    if a0 != 0.0 and disc >= 0.0:
+        ts = 2.0 * d / (v0 + dirn * math.sqrt(disc))
+    else:
+        ts = d / v0
+    if ts < 0.0:
+        ts = 0.0
+    if ts > h:
+        ts = h
+    vs = v0 + a0 * ts
+    r = h - ts
+    jump = jc[i, SPOINT] * vs
+    return q1 + jump * r * r * r / 6.0, jump * r * r * 0.5
+
+
+def advance(n_sub, coef, f, st, jc, js, stk, bk):
+    """Advance every mode by ``n_sub`` equal sub-steps.
+
+    Parameters
+    ----------
+    n_sub : int
+        Number of sub-steps.
+    coef : ndarray, shape (N, 11)
+        Per mode: Phi (2x2, row-major: 4), Gamma0 (q, v), Gamma1 (q, v), Gamma2/2 (q, v), h.
+    f : ndarray, shape (N,)
+        Held modal force over the step [N/sqrt(kg) = sqrt(kg) m/s^2].
+    st : ndarray, shape (N, 6)
+        Per mode: q, qdot, (spare), energy in, viscous energy, c = 2 zeta w0.
+    jc, js, stk, bk :
+        Joint constants, joint state and reversal stacks (see :func:`joint_move`).
+
+    Notes
+    -----
+    The caller checks the result for finiteness and restores its copy of the state on failure.
+    """
+    n_modes = st.shape[0]
+    h = coef[0, 10]
+    for k in range(n_sub):
+        for i in range(n_modes):
+            q0 = st[i, 0]
+            v0 = st[i, 1]
+            kt0 = js[i, KTAN] - jc[i, KT]
+            g0 = js[i, F_PREV] - jc[i, KT] * q0
+            a0 = f[i] - st[i, 5] * v0 - jc[i, KINF] * q0 - js[i, F_PREV]
+            g1 = kt0 * v0
+            g2 = js[i, KCURV] * v0 * v0 + kt0 * a0
+            p0 = f[i] - g0
+            q1 = coef[i, 0] * q0 + coef[i, 1] * v0 + coef[i, 4] * p0 - coef[i, 6] * g1 - coef[i, 8] * g2
+            v1 = coef[i, 2] * q0 + coef[i, 3] * v0 + coef[i, 5] * p0 - coef[i, 7] * g1 - coef[i, 9] * g2
+            if jc[i, SPOINT] > 0.0 and v0 * v1 > 0.0:
+                q1, dv = _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk)
+                v1 += dv
+            if v0 * v1 < 0.0:
+                # velocity reversal inside the step: insert the displacement extremum
+                ts = v0 / (v0 - v1)
+                ue = q0 + 0.5 * v0 * ts * h
+                if v0 > 0.0:
+                    ue = max(ue, q0, q1)
+                else:
+                    ue = min(ue, q0, q1)
+                joint_move(i, ue, jc, js, stk, bk)
+            joint_move(i, q1, jc, js, stk, bk)
+            st[i, 3] += f[i] * (q1 - q0)
+            st[i, 4] += st[i, 5] * h * 0.5 * (v0 * v0 + v1 * v1)
+            st[i, 0] = q1
+            st[i, 1] = v1

@@ -1,0 +1,435 @@
+"""Time stepping of a modal Iwan structure: the core every other part of jointfmu runs on.
+
+:class:`ModalSimulator` holds the state of all modes and advances it over caller's steps with
+inputs held constant (zero-order hold) over each step.  The maths of one sub-step is in
+:mod:`jointfmu._kernel` (exact Iwan memory + ETD2 exponential integrator); this module owns the
+arrays, chooses the sub-step, checks inputs and undoes a step that fails.
+
+Contract of :meth:`ModalSimulator.step`
+---------------------------------------
+* ``dt >= 0`` finite; 0 is a no-op.  The step is split into the fewest equal sub-steps no longer
+  than ``1 / (steps_per_period * f_max)`` (f_max the highest low-amplitude natural frequency).
+* Inputs set by :meth:`set_inputs` are held over the whole step.
+* On success returns ``(True, "")``.  On failure returns ``(False, message)`` and the state is
+  exactly as before the call.
+* Deterministic: the same inputs and steps give bit-identical results.
+
+Accuracy at the default ``steps_per_period`` is stated in the README (measured against the SciPy
+reference, :mod:`jointfmu.reference`); the scheme is second order in the sub-step and exact for
+the linear part.
+"""
+from __future__ import annotations
+
+import io
+import math
+
+import numpy as np
+from scipy.linalg import expm
+
+from . import _kernel as K
+from .errors import InputError
+from .modal import ModalModel
+
+__all__ = [
+    "ModalSimulator",
+    "DEFAULT_STEPS_PER_PERIOD",
+    "DEFAULT_MERGE_TOL",
+    "DEFAULT_STACK_CAPACITY",
+    "MIN_STEPS_PER_PERIOD",
+]
+
+#: Sub-steps per period of the highest mode.  Measured error against the reference: see README.
+DEFAULT_STEPS_PER_PERIOD = 40.0
+#: Below this the explicit treatment of the joint remainder is no longer safely stable.
+MIN_STEPS_PER_PERIOD = 8.0
+#: A reversal pair is dropped when the force error it causes is below this fraction of Fs.
+DEFAULT_MERGE_TOL = 1e-10
+#: Reversal stack entries per mode (a hard bound; reaching it drops the innermost loop).
+DEFAULT_STACK_CAPACITY = 4096
+#: Largest magnitude accepted for an input (keeps every intermediate value finite).
+MAX_INPUT = 1e12
+
+_STATE_VERSION = 1
+
+
+def _joint_constants(model: ModalModel, merge_tol: float) -> np.ndarray:
+    """Per-mode constant table for the kernel, shape (N, NJC)."""
+    Fs, Kt, chi, beta = model.Fs, model.Kt, model.chi, model.beta
+    # Segalman 2005 parameter inversion (physics sheet sec. 1), a = (chi+1)/(chi+2)
+    a = (chi + 1.0) / (chi + 2.0)
+    phimax = Fs * (1.0 + beta) / (Kt * (beta + a))
+    R = Fs * (chi + 1.0) / (phimax ** (chi + 2.0) * (beta + a))
+    jc = np.zeros((model.n_modes, K.NJC))
+    jc[:, K.KT] = Kt
+    jc[:, K.FS] = Fs
+    jc[:, K.CHI] = chi
+    jc[:, K.PHIMAX] = phimax
+    jc[:, K.CF] = R / ((chi + 1.0) * (chi + 2.0))
+    jc[:, K.CD] = R / ((chi + 2.0) * (chi + 3.0))
+    jc[:, K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
+    jc[:, K.CK] = R / (chi + 1.0)
+    jc[:, K.E2] = chi + 2.0
+    pm = phimax ** (chi + 2.0)
+    jc[:, K.DVPM] = jc[:, K.CD] * phimax * pm
+    jc[:, K.UVPM] = 0.5 * Kt * phimax**2 - jc[:, K.CUV] * phimax * pm
+    jc[:, K.MERGE_TOL] = merge_tol * Fs
+    jc[:, K.KINF] = model.Kinf
+    jc[:, K.SPOINT] = beta * Kt / (1.0 + beta)
+    return jc
+
+
+def step_coefficients(omega0, zeta, h):
+    """Exact discretization of q'' + 2 zeta w q' + w^2 q = p0 + p1 t + p2 t^2/2 over one step ``h``.
+
+    Van Loan's block-exponential method (C. F. Van Loan, "Computing integrals involving the matrix
+    exponential", IEEE Trans. Automat. Control 23(3):395-404, 1978): expm of the 5x5 block matrix
+    [[A, b, 0, 0], [0, 0, 1, 0], [0, 0, 0, 1], [0, 0, 0, 0]] h holds Phi = e^(A h) and
+    Gamma_j = int_0^h e^(A (h - s)) b s^j ds for j = 0, 1 and Gamma_2 / 2.
+
+    Returns
+    -------
+    ndarray, shape (N, 11)
+        Phi (row-major), Gamma0 (q, v), Gamma1 (q, v), Gamma2/2 (q, v), h.
+    """
+    omega0 = np.asarray(omega0, dtype=float)
+    n = omega0.shape[0]
+    M = np.zeros((n, 5, 5))
+    M[:, 0, 1] = 1.0
+    M[:, 1, 0] = -omega0**2
+    M[:, 1, 1] = -2.0 * np.asarray(zeta) * omega0
+    M[:, 1, 2] = 1.0
+    M[:, 2, 3] = 1.0
+    M[:, 3, 4] = 1.0
+    E = expm(M * h)
+    coef = np.empty((n, 11))
+    coef[:, 0:4] = E[:, 0:2, 0:2].reshape(n, 4)
+    coef[:, 4:6] = E[:, 0:2, 2]
+    coef[:, 6:8] = E[:, 0:2, 3]
+    coef[:, 8:10] = E[:, 0:2, 4]
+    coef[:, 10] = h
+    return coef
+
+
+def _select_kernel(kernel: str):
+    """Return ``(advance, joint_move, name)`` for the requested kernel."""
+    if kernel not in ("auto", "python", "compiled"):
+        raise InputError(f"kernel = {kernel!r}: allowed values are 'auto', 'python', 'compiled'")
+    if kernel != "python":
+        try:
+            from . import _compiled  # optional fast path (Numba)
+
+            return _compiled.advance, _compiled.joint_move, _compiled.NAME
+        except Exception as exc:  # noqa: BLE001 - any failure falls back, and is reported
+            if kernel == "compiled":
+                raise InputError(f"kernel = 'compiled' requested but not available: {exc}") from exc
+    return K.advance, K.joint_move, "python"
+
+
+class ModalSimulator:
+    """State and stepping of one modal Iwan structure.
+
+    Parameters
+    ----------
+    params : ParameterSet
+        The structure build.
+    steps_per_period : float
+        Sub-steps per period of the highest mode (>= ``MIN_STEPS_PER_PERIOD``).
+    kernel : {"auto", "python", "compiled"}
+        Which implementation of the hot loop; "auto" takes the compiled one when available.
+    merge_tol : float
+        Reversal pairs whose force effect is below ``merge_tol * Fs`` are dropped.
+    stack_capacity : int
+        Reversal stack entries per mode.
+    q0, qdot0 : array_like, shape (N,), optional
+        Initial modal displacement [m sqrt(kg)] and velocity [m sqrt(kg)/s]; the joint starts on its
+        virgin curve at q0 (as if loaded monotonically from 0).
+    """
+
+    def __init__(
+        self,
+        params,
+        steps_per_period: float = DEFAULT_STEPS_PER_PERIOD,
+        kernel: str = "auto",
+        merge_tol: float = DEFAULT_MERGE_TOL,
+        stack_capacity: int = DEFAULT_STACK_CAPACITY,
+        q0=None,
+        qdot0=None,
+    ):
+        spp = float(steps_per_period)
+        if not math.isfinite(spp) or spp < MIN_STEPS_PER_PERIOD:
+            raise InputError(
+                f"steps_per_period = {steps_per_period!r}: must be a finite number >= "
+                f"{MIN_STEPS_PER_PERIOD:g} (default {DEFAULT_STEPS_PER_PERIOD:g})"
+            )
+        if not (math.isfinite(merge_tol) and 0.0 <= merge_tol < 1e-3):
+            raise InputError(f"merge_tol = {merge_tol!r}: must satisfy 0 <= merge_tol < 1e-3")
+        if int(stack_capacity) < 8:
+            raise InputError(f"stack_capacity = {stack_capacity!r}: must be an integer >= 8")
+        self.params = params
+        self.model = ModalModel.from_params(params)
+        self.steps_per_period = spp
+        self.merge_tol = float(merge_tol)
+        self._advance, self._joint_move, self.kernel = _select_kernel(kernel)
+        n = self.model.n_modes
+        self.h_max = 1.0 / (spp * float(self.model.omega0.max()) / (2.0 * math.pi))
+        self._jc = _joint_constants(self.model, self.merge_tol)
+        self._cap = int(stack_capacity)
+        self._q0 = self._vector(q0, "q0", n)
+        self._qdot0 = self._vector(qdot0, "qdot0", n)
+        self._coef_cache: dict[float, np.ndarray] = {}
+        self._st = np.zeros((n, 6))
+        self._js = np.zeros((n, K.NJS))
+        self._stk = np.zeros((n, self._cap, 3))
+        self._bk = np.zeros((n, self._cap, 3))
+        self._f_point = np.zeros(len(self.model.input_labels))
+        self._f_modal = np.zeros(n)
+        self._a_base = 0.0
+        self.time = 0.0
+        self.reset()
+
+    # -- set-up ------------------------------------------------------------------------------
+    @staticmethod
+    def _vector(value, name, n):
+        if value is None:
+            return np.zeros(n)
+        a = np.asarray(value, dtype=float).reshape(-1)
+        if a.shape != (n,) or not np.all(np.isfinite(a)):
+            raise InputError(f"{name}: must be {n} finite numbers (one per mode), got {value!r}")
+        return a.copy()
+
+    def reset(self) -> None:
+        """Back to the initial state: time 0, initial conditions, virgin joints, inputs zero."""
+        n = self.model.n_modes
+        self.time = 0.0
+        self._st[:] = 0.0
+        self._st[:, 0] = self._q0
+        self._st[:, 1] = self._qdot0
+        self._st[:, 5] = 2.0 * self.model.zeta * self.model.omega0
+        self._js[:] = 0.0
+        self._stk[:] = 0.0
+        for i in range(n):
+            K.joint_set_virgin(i, float(self._q0[i]), self._jc, self._js)
+        self._f_point[:] = 0.0
+        self._f_modal[:] = 0.0
+        self._a_base = 0.0
+        self._e0 = float(self.kinetic_potential_energy.sum() + self._js[:, K.E_PREV].sum())
+
+    def set_inputs(self, point_forces=None, modal_forces=None, base_acc=None) -> None:
+        """Set held inputs; ``None`` leaves one unchanged.
+
+        Parameters
+        ----------
+        point_forces : array_like, shape (n_in,)
+            Forces at the input points, in ``params.input_points`` order [N].
+        modal_forces : array_like, shape (N,)
+            Direct modal forces [N/sqrt(kg)].
+        base_acc : float
+            Base acceleration [m/s^2]; only for a base-mounted structure.
+
+        Raises
+        ------
+        InputError
+            Wrong shape, non-finite or out-of-range value; nothing is changed then.
+        """
+        new_p = self._checked(point_forces, self._f_point, "point_forces", self.model.input_labels)
+        new_m = self._checked(modal_forces, self._f_modal, "modal_forces", self.model.mode_labels)
+        if base_acc is not None:
+            a = float(base_acc)
+            if not self.model.has_base and a != 0.0:
+                raise InputError("base_acc: this structure has no [base] mounting; only 0 is allowed")
+            if not (math.isfinite(a) and abs(a) <= MAX_INPUT):
+                raise InputError(f"base_acc = {base_acc!r}: must be finite with |value| <= {MAX_INPUT:g} m/s^2")
+            self._a_base = a
+        self._f_point = new_p
+        self._f_modal = new_m
+
+    @staticmethod
+    def _checked(value, current, name, labels):
+        if value is None:
+            return current
+        a = np.array(value, dtype=float).reshape(-1)
+        if a.shape != current.shape:
+            raise InputError(
+                f"{name}: expected {current.shape[0]} values ({', '.join(labels) or 'none'}), got {a.shape[0]}"
+            )
+        bad = ~(np.isfinite(a) & (np.abs(a) <= MAX_INPUT))
+        if bad.any():
+            j = int(np.argmax(bad))
+            raise InputError(
+                f"{name}[{labels[j]}] = {a[j]!r}: must be finite with |value| <= {MAX_INPUT:g}"
+            )
+        return a
+
+    # -- stepping ----------------------------------------------------------------------------
+    def _coefficients(self, h: float) -> np.ndarray:
+        c = self._coef_cache.get(h)
+        if c is None:
+            if len(self._coef_cache) > 16:
+                self._coef_cache.clear()
+            c = step_coefficients(self.model.omega0, self.model.zeta, h)
+            self._coef_cache[h] = c
+        return c
+
+    @property
+    def modal_force(self) -> np.ndarray:
+        """The held modal force, shape (N,) [N/sqrt(kg)]."""
+        return self.model.modal_force(self._f_point, self._f_modal, self._a_base)
+
+    def step(self, dt: float) -> tuple[bool, str]:
+        """Advance by ``dt`` seconds with the held inputs (see the module docstring)."""
+        try:
+            dt = float(dt)
+        except (TypeError, ValueError):
+            return False, f"step size {dt!r} is not a number"
+        if not math.isfinite(dt) or dt < 0.0:
+            return False, f"step size {dt!r}: must be finite and >= 0"
+        if dt == 0.0:
+            return True, ""
+        n_sub = max(1, math.ceil(dt / self.h_max * (1.0 - 1e-12)))
+        coef = self._coefficients(dt / n_sub)
+        f = self.modal_force
+        saved = (self._st.copy(), self._js.copy())
+        self._js[:, K.LOW] = self._js[:, K.DEPTH]
+        try:
+            self._advance(n_sub, coef, f, self._st, self._jc, self._js, self._stk, self._bk)
+            ok = bool(np.all(np.isfinite(self._st)) and np.all(np.isfinite(self._js)))
+            message = "" if ok else "the step produced a non-finite state"
+        except Exception as exc:  # noqa: BLE001 - reported, never thrown across the FMI boundary
+            ok, message = False, f"the step failed: {exc}"
+        if not ok:
+            self._undo(saved)
+            return False, f"step from t = {self.time:.9g} s by {dt:.3g} s: {message}; state kept"
+        self.time += dt
+        return True, ""
+
+    def _undo(self, saved) -> None:
+        st, js = saved
+        for i in range(self.model.n_modes):
+            low, d0 = int(self._js[i, K.LOW]), int(js[i, K.DEPTH])
+            if low < d0:
+                self._stk[i, low:d0] = self._bk[i, low:d0]
+        self._st[:], self._js[:] = st, js
+
+    # -- outputs -----------------------------------------------------------------------------
+    @property
+    def q(self) -> np.ndarray:
+        """Modal displacements, shape (N,) [m sqrt(kg)]."""
+        return self._st[:, 0].copy()
+
+    @property
+    def qdot(self) -> np.ndarray:
+        """Modal velocities, shape (N,) [m sqrt(kg)/s]."""
+        return self._st[:, 1].copy()
+
+    @property
+    def joint_force(self) -> np.ndarray:
+        """Joint forces, shape (N,) [N/sqrt(kg)]."""
+        return self._js[:, K.F_PREV].copy()
+
+    @property
+    def qddot(self) -> np.ndarray:
+        """Modal accelerations with the held input, shape (N,) [m sqrt(kg)/s^2]."""
+        m = self.model
+        return self.modal_force - self._st[:, 5] * self._st[:, 1] - m.Kinf * self._st[:, 0] - self._js[:, K.F_PREV]
+
+    @property
+    def point_x(self) -> np.ndarray:
+        """Displacement at the output points relative to the base, shape (n_out,) [m]."""
+        return self.model.phi_out @ self._st[:, 0]
+
+    @property
+    def point_v(self) -> np.ndarray:
+        """Velocity at the output points relative to the base, shape (n_out,) [m/s]."""
+        return self.model.phi_out @ self._st[:, 1]
+
+    @property
+    def point_a(self) -> np.ndarray:
+        """Absolute acceleration at the output points, shape (n_out,) [m/s^2]."""
+        return self.model.phi_out @ self.qddot + self.model.r_out * self._a_base
+
+    @property
+    def base_force(self) -> float:
+        """Force the structure exerts on its mounting along the base direction [N]."""
+        return float(self.model.base_force(self.qddot, self._f_point, self._a_base))
+
+    @property
+    def energy_input(self) -> float:
+        """Work done by the inputs since the start, in the base frame [J]."""
+        return float(self._st[:, 3].sum())
+
+    @property
+    def energy_viscous(self) -> float:
+        """Energy dissipated by viscous damping since the start [J]."""
+        return float(self._st[:, 4].sum())
+
+    @property
+    def energy_joint(self) -> float:
+        """Energy dissipated by the joints (micro- and macro-slip) since the start [J]."""
+        return float(self._js[:, K.D_PREV].sum())
+
+    @property
+    def energy_joint_stored(self) -> float:
+        """Elastic energy held in the joints' springs now [J]."""
+        return float(self._js[:, K.E_PREV].sum())
+
+    @property
+    def kinetic_potential_energy(self) -> np.ndarray:
+        """Kinetic plus linear-spring energy per mode, shape (N,) [J]."""
+        q, v = self._st[:, 0], self._st[:, 1]
+        return 0.5 * v * v + 0.5 * self.model.Kinf * q * q
+
+    @property
+    def energy_residual(self) -> float:
+        """Energy balance error: initial + input - (stored + dissipated) [J]."""
+        held = self.kinetic_potential_energy.sum() + self.energy_joint_stored
+        return self._e0 + self.energy_input - (held + self.energy_joint + self.energy_viscous)
+
+    @property
+    def stack_depth(self) -> np.ndarray:
+        """Reversal points held per mode, shape (N,)."""
+        return self._js[:, K.DEPTH].astype(int)
+
+    @property
+    def merges(self) -> tuple[np.ndarray, np.ndarray]:
+        """Per mode: reversal pairs dropped under the tolerance, and forced by a full stack."""
+        return self._js[:, K.N_MERGE].astype(int), self._js[:, K.N_FORCED].astype(int)
+
+    # -- state -------------------------------------------------------------------------------
+    def get_state(self) -> bytes:
+        """All internal state as bytes (NumPy ``.npz``, no pickle); restores bit for bit."""
+        depth = int(self._js[:, K.DEPTH].max()) if self.model.n_modes else 0
+        buf = io.BytesIO()
+        np.savez(
+            buf,
+            version=np.array(_STATE_VERSION),
+            time=np.array(self.time),
+            st=self._st,
+            js=self._js,
+            stk=self._stk[:, :depth],
+            f_point=self._f_point,
+            f_modal=self._f_modal,
+            a_base=np.array(self._a_base),
+            e0=np.array(self._e0),
+        )
+        return buf.getvalue()
+
+    def set_state(self, data: bytes) -> None:
+        """Restore a state from :meth:`get_state` of a simulator of the same structure."""
+        try:
+            with np.load(io.BytesIO(bytes(data)), allow_pickle=False) as z:
+                parts = {k: z[k] for k in z.files}
+        except Exception as exc:  # noqa: BLE001
+            raise InputError(f"FMU state: not a jointfmu state ({exc})") from exc
+        if int(parts.get("version", -1)) != _STATE_VERSION or parts["st"].shape != self._st.shape:
+            raise InputError("FMU state: made by another structure or version of jointfmu")
+        depth = parts["stk"].shape[1]
+        if depth > self._cap:
+            raise InputError("FMU state: reversal stack larger than this simulator's capacity")
+        self._st[:] = parts["st"]
+        self._js[:] = parts["js"]
+        self._stk[:, :depth] = parts["stk"]
+        self._f_point = parts["f_point"].copy()
+        self._f_modal = parts["f_modal"].copy()
+        self._a_base = float(parts["a_base"])
+        self._e0 = float(parts["e0"])
+        self.time = float(parts["time"])
