@@ -57,11 +57,13 @@ __all__ = [
     "read_input_csv",
     "write_csv_atomic",
     "HOST_REQUIREMENTS",
+    "HOST_OPTIONAL",
 ]
 
-#: Python packages the host needs besides its interpreter (written to requirements.txt).  numba is
-#: the core's optional compiled fast path; without it the core falls back to plain NumPy.
-HOST_REQUIREMENTS = ("numpy>=1.24", "scipy>=1.10", "numba>=0.58 ; extra == 'fast'")
+#: Python packages the host needs besides its interpreter (written to requirements.txt).
+HOST_REQUIREMENTS = ("numpy>=1.24", "scipy>=1.10")
+#: Optional: the core's compiled fast path; without it the core runs its plain-Python kernel.
+HOST_OPTIONAL = ("numba>=0.58",)
 
 _PACKAGE_DIR = Path(__file__).resolve().parent
 
@@ -155,6 +157,12 @@ from pathlib import Path as _Path
 
 _CORE = {core!r}
 
+# pythonfmu 0.7.0 looks the slave class up (findClass in PySlaveInstance.cpp) by running this
+# file again in this module's namespace at every instantiation, and then releases a reference to
+# that namespace which it never took.  Give it one more reference each time, or the namespace
+# is freed after a few instances in one process and the next instantiation fails or crashes.
+globals().setdefault("_NAMESPACE_REFS", []).append(globals())
+
 
 def _load_core():
     if _CORE in _sys.modules:
@@ -234,7 +242,9 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         (src / BUILD_INFO_FILE).write_text(json.dumps(info, indent=2) + "\n", encoding="utf-8")
         (src / "requirements.txt").write_text(
             "# Python packages the FMU's host interpreter needs (pip install -r requirements.txt)\n"
-            + "".join(r + "\n" for r in HOST_REQUIREMENTS), encoding="utf-8")
+            + "".join(r + "\n" for r in HOST_REQUIREMENTS)
+            + "# optional, the compiled fast path (much faster steps):\n"
+            + "".join(f"# {r}\n" for r in HOST_OPTIONAL), encoding="utf-8")
         script = src / f"{ident}.py"
         script.write_text(_ENTRY_TEMPLATE.format(
             version=_jointfmu_version(), set_id=params.set_id, content_hash=params.content_hash(),
@@ -301,6 +311,8 @@ def _build_info(params: ParameterSet, ident: str, core: str) -> dict:
         "jointfmu_version": _jointfmu_version(),
         "pythonfmu_version": _pythonfmu_version(),
         "host_requirements": list(HOST_REQUIREMENTS),
+        "host_optional": list(HOST_OPTIONAL),
+        "built_with_python": sys.version.split()[0],
     }
 
 
@@ -518,9 +530,13 @@ def format_fmu_info(info: Mapping) -> str:
     de = info["default_experiment"]
     if de:
         lines.append("default experiment: " + ", ".join(f"{k}={v}" for k, v in de.items()))
-    lines.append("host requirements: a CPython "
-                 f"{sys.version_info.major}.{sys.version_info.minor}-compatible interpreter "
-                 "loaded in the host process, with: " + ", ".join(info["requirements"]))
+    bi = info["build_info"]
+    lines.append("host requirements: the host process must already run CPython (the FMU binary "
+                 "of pythonfmu links to no libpython; fmpy and other Python hosts qualify; built "
+                 f"with Python {bi.get('built_with_python', '?')}), with "
+                 + ", ".join(info["requirements"])
+                 + (f"; optional: {', '.join(bi['host_optional'])}" if bi.get("host_optional")
+                    else ""))
     return "\n".join(lines)
 
 

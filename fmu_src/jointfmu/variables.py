@@ -191,22 +191,22 @@ def variable_table(params, steps_per_period: float | None = None) -> tuple[FmuVa
     for j, point in enumerate(params.output_points):
         along = _direction(point)
         table.append(_output(f"point.{point.label}.x", "m",
-                             f"displacement at output point {point.label!r} along {along} "
-                             "(relative to the base when base-mounted)", "point_x", j))
+                             f"displacement at output point {point.label!r} along {along}, "
+                             "relative to the base", "point_x", j))
         table.append(_output(f"point.{point.label}.v", "m/s",
-                             f"velocity at output point {point.label!r} along {along} "
-                             "(relative to the base when base-mounted)", "point_v", j))
+                             f"velocity at output point {point.label!r} along {along}, "
+                             "relative to the base", "point_v", j))
         table.append(_output(f"point.{point.label}.a", "m/s2",
-                             f"acceleration at output point {point.label!r} along {along} "
-                             "(relative to the base when base-mounted)", "point_a", j))
+                             f"absolute acceleration at output point {point.label!r} along "
+                             f"{along}", "point_a", j))
     if params.base is not None:
         table.append(_output("base.force", "N",
-                             "reaction force of the structure on its base along "
+                             "force the structure exerts on its mounting along "
                              f"{_direction(params.base)}", "base_force"))
     table.append(_output("energy.input", "J",
-                         "work done on the structure by all inputs since the start", "energy_input"))
+                         "work done by all inputs since the start (base frame)", "energy_input"))
     table.append(_output("energy.joint", "J",
-                         "energy dissipated in all Iwan joints since the start", "energy_joint"))
+                         "energy dissipated in all Iwan joints (micro- and macro-slip) since the start", "energy_joint"))
     table.append(_output("energy.viscous", "J",
                          "energy dissipated by viscous damping since the start", "energy_viscous"))
 
