@@ -40,11 +40,71 @@ def _cmd_check(args: argparse.Namespace) -> int:
     return 1 if bad else 0
 
 
+# --- build, info, simulate (FMU export, see build.py) -------------------------------------------
+def _args_build(p: argparse.ArgumentParser) -> None:
+    p.add_argument("params", metavar="PARAMS", help="parameter file (jointfmu-params/1 TOML)")
+    p.add_argument("-o", "--output", metavar="FMU",
+                   help="FMU to write (default build/<name>_<build-slug>.fmu)")
+
+
+def _cmd_build(args: argparse.Namespace) -> int:
+    """Build the FMI 2.0 co-simulation FMU of a parameter file."""
+    from .build import build_fmu
+
+    r = build_fmu(args.params, args.output)
+    print(f"built {r.path} ({r.set_id}, sha256 {r.content_hash[:12]}, "
+          f"model identifier {r.model_identifier})")
+    return 0
+
+
+def _args_info(p: argparse.ArgumentParser) -> None:
+    p.add_argument("fmu", metavar="FMU", help="an FMU built by jointfmu")
+
+
+def _cmd_info(args: argparse.Namespace) -> int:
+    """Print identity, modes, interface and host requirements of an FMU."""
+    from .build import format_fmu_info, read_fmu_info
+
+    print(format_fmu_info(read_fmu_info(args.fmu)))
+    return 0
+
+
+def _args_simulate(p: argparse.ArgumentParser) -> None:
+    p.add_argument("model", metavar="FMU|PARAMS", help="an FMU, or a parameter file to build first")
+    p.add_argument("--input", required=True, metavar="CSV",
+                   help="CSV with a 'time' column [s] and input-variable columns, held between rows")
+    p.add_argument("--output", required=True, metavar="CSV", help="CSV to write: time and all outputs")
+    p.add_argument("--stop-time", type=float, metavar="S", help="default: last input time")
+    p.add_argument("--step", type=float, metavar="S",
+                   help="communication step (default: the FMU's DefaultExperiment stepSize)")
+
+
+def _cmd_simulate(args: argparse.Namespace) -> int:
+    """Run an FMU on an input CSV and write its outputs."""
+    import tempfile
+    from pathlib import Path
+
+    from .build import build_fmu, read_fmu_info, read_input_csv, run_fmu, write_csv_atomic
+
+    with tempfile.TemporaryDirectory(prefix="jointfmu_sim_") as tmp:
+        model = Path(args.model)
+        fmu = model if model.suffix.lower() == ".fmu" else build_fmu(model, Path(tmp) / "m.fmu").path
+        inputs = [v["name"] for v in read_fmu_info(fmu)["variables"] if v["causality"] == "input"]
+        times, columns = read_input_csv(args.input, inputs)
+        header, rows = run_fmu(fmu, times, columns, stop_time=args.stop_time, step=args.step)
+    out = write_csv_atomic(args.output, header, rows)
+    print(f"wrote {out}: {len(rows)} rows, {len(header) - 1} outputs")
+    return 0
+
+
 # --- the table -------------------------------------------------------------------------------------
 #: name -> (declare arguments, run, one-line help)
 _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
                            Callable[[argparse.Namespace], int], str]] = {
     "check": (_args_check, _cmd_check, "check parameter files and print their content hash"),
+    "build": (_args_build, _cmd_build, "build the FMI 2.0 co-simulation FMU of a parameter file"),
+    "info": (_args_info, _cmd_info, "show parameter set, modes, interface and host needs of an FMU"),
+    "simulate": (_args_simulate, _cmd_simulate, "run an FMU (or a parameter file) on an input CSV"),
 }
 
 
