@@ -225,9 +225,16 @@ class JointSlave(Fmi2Slave):
             return
         self._values = [None if v is None else float(v) for v in values]
         self._initialized = bool(data["initialized"])
-        self._sim, self._active, self._init_error = None, None, None
-        if data["core"] is not None and self._ensure_simulator():
-            self._sim.set_state(base64.b64decode(data["core"]))
+        if data["core"] is None:            # saved before the simulator existed
+            self._sim, self._active, self._init_error = None, None, None
+            return
+        # _ensure_simulator keeps the simulator when the parameter values are unchanged
+        if self._ensure_simulator():
+            try:
+                self._sim.set_state(base64.b64decode(data["core"]))
+            except Exception as exc:
+                self._sim, self._active = None, None
+                self.log(f"FMU state could not be restored: {exc}", Fmi2Status.error)
 
     @staticmethod
     def _fmu_state_to_bytes(state) -> bytes:
