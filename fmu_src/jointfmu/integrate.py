@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import io
 import math
+import warnings
 
 import numpy as np
 from scipy.linalg import expm
@@ -36,6 +37,7 @@ __all__ = [
     "DEFAULT_MERGE_TOL",
     "DEFAULT_STACK_CAPACITY",
     "MIN_STEPS_PER_PERIOD",
+    "kernel_info",
 ]
 
 #: Sub-steps per period of the highest mode.  Measured error against the reference: see README.
@@ -110,18 +112,55 @@ def step_coefficients(omega0, zeta, h):
     return coef
 
 
-def _select_kernel(kernel: str):
-    """Return ``(advance, joint_move, name)`` for the requested kernel."""
-    if kernel not in ("auto", "python", "compiled"):
-        raise InputError(f"kernel = {kernel!r}: allowed values are 'auto', 'python', 'compiled'")
-    if kernel != "python":
+#: Outcome of the one attempt per process to load the compiled kernel: (module or None, reason).
+_COMPILED: list = []
+
+
+def _load_compiled():
+    """Import :mod:`._compiled` once per process; returns ``(module or None, reason)``."""
+    if not _COMPILED:
         try:
             from . import _compiled  # optional fast path (Numba)
 
-            return _compiled.advance, _compiled.joint_move, _compiled.NAME
+            _COMPILED.append((_compiled, f"compiled kernel loaded from {_compiled.CACHE_FILE}"))
         except Exception as exc:  # noqa: BLE001 - any failure falls back, and is reported
-            if kernel == "compiled":
-                raise InputError(f"kernel = 'compiled' requested but not available: {exc}") from exc
+            _COMPILED.append((None, f"{type(exc).__name__}: {exc}"))
+    return _COMPILED[0]
+
+
+def kernel_info() -> dict:
+    """Which kernel ``kernel="auto"`` gives in this process, and why.
+
+    Returns
+    -------
+    dict
+        ``{"kernel": "numba" or "python", "reason": str}``; the reason names the cache file of
+        the compiled kernel, or why it could not be used (Numba missing, ``JOINTFMU_KERNEL=python``
+        set, a compile error...).
+    """
+    mod, reason = _load_compiled()
+    return {"kernel": mod.NAME if mod is not None else "python", "reason": reason}
+
+
+def _select_kernel(kernel: str):
+    """Return ``(advance, joint_move, name)`` for the requested kernel.
+
+    ``"auto"`` takes the compiled kernel when it loads and otherwise the plain-Python one, with a
+    RuntimeWarning (once per process) that says why, unless ``JOINTFMU_KERNEL=python`` asked for
+    it.  ``"compiled"`` raises :class:`InputError` when the compiled kernel is not available.
+    """
+    if kernel not in ("auto", "python", "compiled"):
+        raise InputError(f"kernel = {kernel!r}: allowed values are 'auto', 'python', 'compiled'")
+    if kernel != "python":
+        mod, reason = _load_compiled()
+        if mod is not None:
+            return mod.advance, mod.joint_move, mod.NAME
+        if kernel == "compiled":
+            raise InputError(f"kernel = 'compiled' requested but not available: {reason}")
+        if len(_COMPILED) == 1 and "JOINTFMU_KERNEL=python" not in reason:
+            _COMPILED.append(True)  # warned
+            warnings.warn(f"jointfmu: using the plain-Python joint kernel (10-100x slower): {reason}",
+                          RuntimeWarning, stacklevel=3)
     return K.advance, K.joint_move, "python"
 
 
@@ -135,7 +174,8 @@ class ModalSimulator:
     steps_per_period : float
         Sub-steps per period of the highest mode (>= ``MIN_STEPS_PER_PERIOD``).
     kernel : {"auto", "python", "compiled"}
-        Which implementation of the hot loop; "auto" takes the compiled one when available.
+        Which implementation of the hot loop; "auto" takes the compiled one when available
+        (see :func:`kernel_info`).  The choice is in the attribute ``kernel``: "numba" or "python".
     merge_tol : float
         Reversal pairs whose force effect is below ``merge_tol * Fs`` are dropped.
     stack_capacity : int

@@ -1,0 +1,200 @@
+"""The joint kernel compiled with Numba: the same functions as :mod:`._kernel`, machine code.
+
+Importing this module either yields a working compiled kernel or raises, so that
+:func:`.integrate._select_kernel` can fall back to the plain-Python one and say why.
+
+Why a copy of ``_kernel.py`` in a cache folder
+----------------------------------------------
+Numba's on-disk cache (``cache=True``) is keyed by the path and time stamp of the source file.
+An FMU's resources are extracted to a new temporary folder at every load, so compiling
+``_kernel.py`` where it lies would recompile (about 1.5 s) at every instantiation.  Instead the
+kernel source, with a footer that applies ``numba.njit(cache=True)`` to each function, is written
+once to a per-user folder keyed by the SHA-256 of that text::
+
+    $JOINTFMU_CACHE_DIR/kernel-<hash16>/jfmu_kernel_<hash16>.py     (if the variable is set)
+    $XDG_CACHE_HOME/jointfmu/... or ~/.cache/jointfmu/...            (otherwise)
+    <tempdir>/jointfmu-<user>/...                                    (if neither is writable)
+
+and imported from there; Numba keeps its cache in ``__pycache__`` beside it.  Every FMU and every
+process built from the same kernel source shares that folder.  The file is created atomically
+and never rewritten once in place (temp file, then a hard link that fails if another process was
+first), so its time stamp, and with it Numba's cache, stays valid; Numba writes its own cache
+files atomically as well.
+
+The kernel functions' bodies are untouched: the results are bit-identical to the plain-Python
+kernel (checked here on import with a short run, and by ``tests/test_kernel.py``).  ``fastmath``
+stays off for that reason; ``error_model="numpy"`` only drops the ZeroDivisionError check (the
+kernel divides by nothing that can be zero; a non-finite result is caught by the caller anyway).
+
+Environment
+-----------
+``JOINTFMU_KERNEL=python``
+    Do not compile; importing this module raises (the caller falls back and reports why).
+``JOINTFMU_CACHE_DIR``
+    Folder for the compiled kernel (default as above).
+"""
+from __future__ import annotations
+
+import getpass
+import hashlib
+import importlib.util
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from . import _kernel as _K
+
+__all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "CACHE_FILE", "cache_dir_candidates"]
+
+NAME = "numba"
+
+#: Functions compiled, in the order they are bound (all before any is called: Numba resolves
+#: each callee as a global when its caller is first compiled).
+_FUNCTIONS = ("_branch", "_root", "_eval_at", "_lower_depth", "joint_move", "joint_set_virgin",
+              "_onset_correction", "advance")
+
+_FOOTER = (
+    "\n\n# ---- appended by jointfmu._compiled: the functions above, compiled by Numba ----\n"
+    "import numba as _numba\n"
+    + "".join(f"{name} = _numba.njit(cache=True, nogil=True, error_model='numpy')({name})\n"
+              for name in _FUNCTIONS)
+)
+
+
+def cache_dir_candidates() -> list[Path]:
+    """Folders tried, in order, for the compiled kernel."""
+    out = []
+    env = os.environ.get("JOINTFMU_CACHE_DIR")
+    if env:
+        out.append(Path(env).expanduser())
+    xdg = os.environ.get("XDG_CACHE_HOME")
+    out.append((Path(xdg) if xdg else Path.home() / ".cache") / "jointfmu")
+    try:
+        user = getpass.getuser()
+    except Exception:  # noqa: BLE001 - no user name on some hosts
+        user = str(os.getuid()) if hasattr(os, "getuid") else "user"
+    out.append(Path(tempfile.gettempdir()) / f"jointfmu-{user}")
+    return out
+
+
+def _write_once(path: Path, text: bytes) -> None:
+    """Create ``path`` with ``text`` atomically unless it already holds exactly ``text``."""
+    try:
+        if path.read_bytes() == text:
+            return
+        stale = True
+    except FileNotFoundError:
+        stale = False
+    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".py", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(text)
+        if stale:
+            os.replace(tmp, path)  # a damaged copy: replace it (Numba then recompiles)
+            return
+        try:
+            os.link(tmp, path)  # fails if another process was first: keep its file and stamp
+        except FileExistsError:
+            pass
+        except OSError:  # no hard links on this file system
+            if not path.exists():
+                os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def _place_source() -> tuple[Path, str]:
+    text = (Path(_K.__file__).read_text(encoding="utf-8") + _FOOTER).encode("utf-8")
+    digest = hashlib.sha256(text).hexdigest()[:16]
+    name = f"jfmu_kernel_{digest}"
+    errors = []
+    for base in cache_dir_candidates():
+        folder = base / f"kernel-{digest}"
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+            path = folder / f"{name}.py"
+            _write_once(path, text)
+            if path.read_bytes() == text:
+                return path, name
+            errors.append(f"{path}: content differs after writing")
+        except OSError as exc:
+            errors.append(f"{base}: {exc}")
+    raise ImportError("no writable cache folder for the compiled kernel: " + "; ".join(errors))
+
+
+def _load():
+    if os.environ.get("JOINTFMU_KERNEL", "").strip().lower() == "python":
+        raise ImportError("JOINTFMU_KERNEL=python is set")
+    import numba  # noqa: F401 - fail here, with numba's own message, when it is missing
+
+    path, name = _place_source()
+    mod = sys.modules.get(name)
+    if mod is None:  # two FMUs in one process share one compiled kernel
+        spec = importlib.util.spec_from_file_location(name, path)
+        mod = importlib.util.module_from_spec(spec)
+        spec.loader.exec_module(mod)
+        sys.modules[name] = mod
+    return path, mod
+
+
+def _self_check(mod) -> None:
+    """Compile (or load from cache) with the argument types the simulator uses, and compare a
+    short run with reversals, wiping-out and macro-slip against the plain-Python kernel."""
+    n, cap = 2, 6
+    jc = np.zeros((n, _K.NJC))
+    # two arbitrary joints in the kernel's own constants (chi = -0.5, beta = 0.2 and chi = -0.3,
+    # beta = 0): built as integrate._joint_constants does, Segalman 2005 inverse relations
+    for i, (fs, kt, chi, beta, kinf) in enumerate(((1.0, 4.0, -0.5, 0.2, 30.0),
+                                                   (2.0, 9.0, -0.3, 0.0, 60.0))):
+        a = (chi + 1.0) / (chi + 2.0)
+        phimax = fs * (1.0 + beta) / (kt * (beta + a))
+        R = fs * (chi + 1.0) / (phimax ** (chi + 2.0) * (beta + a))
+        pm = phimax ** (chi + 2.0)
+        jc[i, _K.KT], jc[i, _K.FS], jc[i, _K.CHI], jc[i, _K.PHIMAX] = kt, fs, chi, phimax
+        jc[i, _K.CF] = R / ((chi + 1.0) * (chi + 2.0))
+        jc[i, _K.CD] = R / ((chi + 2.0) * (chi + 3.0))
+        jc[i, _K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
+        jc[i, _K.CK] = R / (chi + 1.0)
+        jc[i, _K.E2] = chi + 2.0
+        jc[i, _K.DVPM] = jc[i, _K.CD] * phimax * pm
+        jc[i, _K.UVPM] = 0.5 * kt * phimax**2 - jc[i, _K.CUV] * phimax * pm
+        jc[i, _K.MERGE_TOL] = (1e-2 if i == 0 else 0.0) * fs  # large: merges happen
+        jc[i, _K.KINF] = kinf
+        jc[i, _K.SPOINT] = beta * kt / (1.0 + beta)
+    # coefficients of a crude explicit step are enough to exercise the code: with this force both
+    # joints reverse, wipe out loops, fill the small stack (forced merges); joint 0 also merges
+    # under its tolerance, joint 1 reaches macro-slip
+    h = 0.01
+    coef = np.zeros((n, 11))
+    coef[:, 0], coef[:, 1], coef[:, 2], coef[:, 3] = 1.0, h, -0.3, 0.99
+    coef[:, 4], coef[:, 5], coef[:, 10] = 0.5 * h * h, h, h
+    results = []
+    for kern in (_K, mod):
+        js = np.zeros((n, _K.NJS))
+        st = np.zeros((n, 6))
+        stk = np.zeros((n, cap, 3))
+        bk = np.zeros((n, cap, 3))
+        for i in range(n):
+            kern.joint_set_virgin(i, 0.0, jc, js)
+        st[:, 5] = 0.1
+        for k in range(150):
+            f = np.array([20.0, -40.0]) * np.sin(0.37 * k) * np.exp(-0.02 * k)
+            js[:, _K.LOW] = js[:, _K.DEPTH]
+            kern.advance(3, coef, f, st, jc, js, stk, bk)
+        kern.joint_move(0, 0.5 * st[0, 0], jc, js, stk, bk)
+        results.append(np.concatenate([st.ravel(), js.ravel(), stk.ravel()]))
+    if not np.array_equal(results[0], results[1]):
+        raise ImportError("the compiled kernel disagrees with the plain-Python kernel on the "
+                          "self-check; not used")
+
+
+CACHE_FILE, _mod = _load()
+_self_check(_mod)
+
+advance = _mod.advance
+joint_move = _mod.joint_move
+joint_set_virgin = _mod.joint_set_virgin
