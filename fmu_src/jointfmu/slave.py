@@ -27,7 +27,7 @@ from pythonfmu import Fmi2Slave
 from pythonfmu.enums import Fmi2Causality, Fmi2Initial, Fmi2Status, Fmi2Variability
 from pythonfmu.variables import Real
 
-from .errors import JointFmuError
+from .errors import InputError, JointFmuError
 from .params import load_parameter_set
 from .variables import variable_table
 
@@ -148,6 +148,12 @@ class JointSlave(Fmi2Slave):
         import numpy as np
 
         vals = self._values
+        for kind in ("modal_force", "point_force", "base_acc"):
+            for k in self._input_vrs[kind]:
+                if not math.isfinite(vals[k]):
+                    # named by its FMU variable; the core repeats the check in its own terms
+                    raise InputError(f"input {self._table[k].name} = {vals[k]!r} "
+                                     f"[{self._table[k].unit}]: allowed are finite values")
         kwargs = {}
         if self._input_vrs["modal_force"]:
             kwargs["modal_forces"] = np.array([vals[k] for k in self._input_vrs["modal_force"]])
