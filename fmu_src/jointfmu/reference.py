@@ -34,8 +34,6 @@ from .errors import InputError, ParameterError, Problem, SimulationError
 
 __all__ = ["simulate_mode", "simulate", "iwan_constants"]
 
-_KINDS = ("reversal", "closure", "slip")
-
 
 # ---------------------------------------------------------------------------------------------------
 # Joint constants and closed forms
@@ -290,7 +288,7 @@ class _Memory:
 # ---------------------------------------------------------------------------------------------------
 # One mode
 # ---------------------------------------------------------------------------------------------------
-def _as_inputs(t, p):
+def _as_times(t):
     t = np.asarray(t, dtype=float)
     if t.ndim != 1 or t.size < 2:
         raise InputError(f"t must be a 1-D array of at least 2 communication times, got shape {t.shape}")
@@ -321,7 +319,7 @@ def _run_mode(f0, zeta, Fs, Kt, chi, beta, t, p, q0=0.0, v0=0.0, rtol=1e-11, ato
     history).  Internal: tests use it to check the memory logic.
     """
     iw = _check_mode_params(f0, zeta, Fs, Kt, chi, beta, where=_where)
-    t = _as_inputs(t, p)
+    t = _as_times(t)
     M = t.size
     p = _as_force(p, M)
     try:
@@ -384,7 +382,13 @@ def _run_mode(f0, zeta, Fs, Kt, chi, beta, t, p, q0=0.0, v0=0.0, rtol=1e-11, ato
         t_end = float(t[j])
         next_out = k + 1
         stall = 0
+        spins = 0
         while True:
+            spins += 1
+            if spins > 1000 + 2 * len(mem.levels):
+                # Memory updates without any time advance: a logic fault, never silently loop.
+                raise SimulationError(f"reference integration makes no progress at t = {t_cur!r} "
+                                      f"(memory depth {mem.depth})")
             q, v = float(y[0]), float(y[1])
             # Direction of motion at the restart.
             if v == 0.0:
@@ -493,6 +497,8 @@ def _run_mode(f0, zeta, Fs, Kt, chi, beta, t, p, q0=0.0, v0=0.0, rtol=1e-11, ato
                 raise SimulationError(f"reference integration makes no progress at t = {t_cur!r} "
                                       f"(repeated {kind} events)")
             y = y_ev
+            if t_reach > t_cur:
+                spins = 0
             t_cur = t_reach
             n_events += 1
             if kind == "reversal":
@@ -581,7 +587,7 @@ def simulate(params, t, modal_force, q0=None, v0=None, rtol=1e-11) -> dict:
     """
     modes = list(_get(params, "modes"))
     N = len(modes)
-    t = _as_inputs(t, None)
+    t = _as_times(t)
     M = t.size
     f = np.asarray(modal_force, dtype=float)
     if f.ndim == 1 and N == 1:
