@@ -169,3 +169,29 @@ def test_simulate_missing_time_column(nominal_fmu, tmp_path, capsys):
     assert main(["simulate", str(nominal_fmu), "--input", str(inp), "--output",
                  str(tmp_path / "o.csv")]) == 1
     assert "no 'time' column" in capsys.readouterr().err
+
+
+def test_ssv_valid_against_ssp_schema_and_exact(tmp_path, capsys):
+    """SSP 1.0 SystemStructureParameterValues.xsd (as shipped with fmpy) validates the file;
+    every fitted value round-trips exactly and carries its FMU parameter name."""
+    from fmpy.ssp.ssd import read_ssv
+
+    worn = EXAMPLES / "tray_worn.toml"
+    out = tmp_path / "worn.ssv"
+    assert main(["ssv", str(worn), "-o", str(out)]) == 0
+    assert str(out) in capsys.readouterr().out
+    pset = read_ssv(str(out), validate=True)
+    ps = load_parameter_set(worn)
+    assert pset.name == ps.set_id
+    values = {p.name: (float(p.value), p.unit) for p in pset.parameters}
+    assert len(values) == 6 * len(ps.modes)
+    for i, m in enumerate(ps.modes, 1):
+        assert values[f"mode[{i}].f0"] == (m.f0, "Hz")
+        assert values[f"mode[{i}].joint.Kt"] == (m.joint.Kt, "1/s2")
+        assert values[f"mode[{i}].joint.Fs"] == (m.joint.Fs, None)   # no integer-exponent unit
+        assert values[f"mode[{i}].joint.chi"][0] == m.joint.chi
+
+
+def test_ssv_bad_suffix(tmp_path, capsys):
+    assert main(["ssv", str(NOMINAL), "-o", str(tmp_path / "x.xml")]) == 1
+    assert "must end in '.ssv'" in capsys.readouterr().err

@@ -56,6 +56,8 @@ __all__ = [
     "run_fmu",
     "read_input_csv",
     "write_csv_atomic",
+    "parameter_values_ssv",
+    "write_ssv",
     "HOST_REQUIREMENTS",
     "HOST_OPTIONAL",
 ]
@@ -748,3 +750,78 @@ def write_csv_atomic(path: str | os.PathLike, header: Sequence[str],
         Path(tmp).unlink(missing_ok=True)
         raise
     return path
+
+
+# ----------------------------------------------------------------------- SSP parameter values
+_SSV_NS = "http://ssp-standard.org/SSP1/SystemStructureParameterValues"
+_SSC_NS = "http://ssp-standard.org/SSP1/SystemStructureCommon"
+
+
+def parameter_values_ssv(params: ParameterSet) -> bytes:
+    """The fitted mode values of a parameter set as an SSP 1.0 parameter-value file (.ssv).
+
+    Parameter names are the FMU's parameter names (``mode[i].f0`` ... ``mode[i].joint.beta``), so
+    an SSP tool can apply the file to any jointfmu FMU of the same structure.  SSP 1.0
+    (SystemStructureCommon, ``TUnit``) needs a ``BaseUnit`` with integer exponents on every
+    unit, so values in mass-normalized units (``Fs`` in N/kg^0.5) carry no ``unit`` attribute;
+    their unit is in the parameter's description.
+
+    Returns
+    -------
+    bytes
+        UTF-8 XML.
+    """
+    ET.register_namespace("ssv", _SSV_NS)
+    ET.register_namespace("ssc", _SSC_NS)
+    v, c = f"{{{_SSV_NS}}}", f"{{{_SSC_NS}}}"
+    root = ET.Element(v + "ParameterSet", {
+        "version": "1.0", "name": params.set_id,
+        "description": f"fitted mode values of {params.set_id} "
+                       f"(parameter-set sha256 {params.content_hash()})",
+        "generationTool": f"jointfmu {_jointfmu_version()}",
+    })
+    if params.provenance.fitted_by:
+        root.set("author", params.provenance.fitted_by)
+    plist = ET.SubElement(root, v + "Parameters")
+    used = set()
+    for var in variable_table(params):
+        if var.kind != "parameter":
+            continue
+        p = ET.SubElement(plist, v + "Parameter", name=var.name,
+                          description=f"{var.description} [{var.unit}]")
+        real = ET.SubElement(p, v + "Real", value=_fmt(var.start))
+        if UNITS[var.unit] is not None:
+            real.set("unit", var.unit)
+            used.add(var.unit)
+    units = ET.SubElement(root, v + "Units")
+    for name in sorted(used):
+        u = ET.SubElement(units, c + "Unit", name=name)
+        ET.SubElement(u, c + "BaseUnit", {k: str(e) for k, e in UNITS[name].items()})
+    ann = ET.SubElement(ET.SubElement(root, v + "Annotations"), c + "Annotation",
+                        type="org.jointfmu.parameterset")
+    ET.SubElement(ann, "ParameterSet", id=params.set_id, contentHash=params.content_hash())
+    ET.indent(root)
+    return ET.tostring(root, encoding="UTF-8", xml_declaration=True)
+
+
+def write_ssv(params_path: str | os.PathLike, output: str | os.PathLike | None = None,
+              *, cwd: Path | None = None) -> Path:
+    """Write :func:`parameter_values_ssv` of a parameter file atomically.
+
+    Default output: :func:`default_output_path` with the suffix ``.ssv``.
+    """
+    params = load_parameter_set(params_path)
+    out = Path(output) if output is not None else \
+        default_output_path(params, cwd).with_suffix(".ssv")
+    if out.suffix.lower() != ".ssv":
+        raise InputError(f"output {str(out)!r} must end in '.ssv'")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent)
+    try:
+        with os.fdopen(fd, "wb") as f:
+            f.write(parameter_values_ssv(params))
+        os.replace(tmp, out)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return out

@@ -97,6 +97,20 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _args_ssv(p: argparse.ArgumentParser) -> None:
+    p.add_argument("params", metavar="PARAMS", help="parameter file (jointfmu-params/1 TOML)")
+    p.add_argument("-o", "--output", metavar="SSV",
+                   help="file to write (default build/<name>_<build-slug>.ssv)")
+
+
+def _cmd_ssv(args: argparse.Namespace) -> int:
+    """Write the fitted mode values as an SSP 1.0 parameter-value file."""
+    from .build import write_ssv
+
+    print(f"wrote {write_ssv(args.params, args.output)}")
+    return 0
+
+
 # --- the table -------------------------------------------------------------------------------------
 #: name -> (declare arguments, run, one-line help)
 _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
@@ -105,6 +119,7 @@ _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
     "build": (_args_build, _cmd_build, "build the FMI 2.0 co-simulation FMU of a parameter file"),
     "info": (_args_info, _cmd_info, "show parameter set, modes, interface and host needs of an FMU"),
     "simulate": (_args_simulate, _cmd_simulate, "run an FMU (or a parameter file) on an input CSV"),
+    "ssv": (_args_ssv, _cmd_ssv, "write the fitted mode values as an SSP 1.0 .ssv file"),
 }
 
 
