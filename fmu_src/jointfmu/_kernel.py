@@ -35,8 +35,8 @@ One power per evaluation serves force, dissipation and energy.
 Bounded memory.  Wiping-out removes closed loops.  A decaying oscillation still nests a new, smaller
 loop every half cycle, so a pair of reversals is also dropped when the force error it would cause,
 |F_top - F_alt(u_top)| with F_alt the branch two reversals down, is below ``merge_tol`` (an absolute
-force, ``merge_tol_rel * Fs`` in :mod:`integrate`).  If the stack is full all the same, the innermost
-pair is dropped and counted as a forced merge.
+force, ``merge_tol_rel * Fs`` in :mod:`integrate`).  If the stack is full all the same, the interior
+pair that matters least is dropped (see :func:`_forced_merge`), and counted as a forced merge.
 
 Time step (per mode, mass-normalized)
 -------------------------------------
@@ -139,6 +139,38 @@ def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
     js[i, D_ACC] = d_total - c * dv
 
 
+def _forced_merge(i, jc, js, stk, bk):
+    """Drop the interior reversal pair that matters least (the stack is full).
+
+    Removing the pair (u_k, u_k+1), 1 <= k <= depth - 3, leaves the current branch and force as
+    they are.  Only if the motion later wipes out the loops above it does the joint return to the
+    branch from u_k-1 instead of u_k+1, and its force then jumps by
+    e_k = |F_k-1 + 2 F_bb((u_k+2 - u_k-1)/2) - F_k+2|; the pair with the smallest e_k goes.
+    """
+    depth = int(js[i, DEPTH])
+    best = 1
+    best_err = -1.0
+    for k in range(1, depth - 2):
+        du = stk[i, k + 2, 0] - stk[i, k - 1, 0]
+        fbb, dv, uv, kt, kc = _branch(abs(du) * 0.5, jc, i)
+        err = abs(stk[i, k - 1, 1] + (2.0 if du >= 0.0 else -2.0) * fbb - stk[i, k + 2, 1])
+        if best_err < 0.0 or err < best_err:
+            best_err = err
+            best = k
+    low = int(js[i, LOW])
+    if best < low:
+        for j in range(best, low):
+            bk[i, j, 0] = stk[i, j, 0]
+            bk[i, j, 1] = stk[i, j, 1]
+            bk[i, j, 2] = stk[i, j, 2]
+        js[i, LOW] = best
+    for j in range(best, depth - 2):
+        stk[i, j, 0] = stk[i, j + 2, 0]
+        stk[i, j, 1] = stk[i, j + 2, 1]
+        stk[i, j, 2] = stk[i, j + 2, 2]
+    js[i, DEPTH] = depth - 2.0
+
+
 def joint_move(i, u, jc, js, stk, bk):
     """Move joint ``i`` monotonically from ``js[i, U_PREV]`` to ``u``; update its memory.
 
@@ -174,13 +206,10 @@ def joint_move(i, u, jc, js, stk, bk):
         # reversal at u0: push it
         depth = int(js[i, DEPTH])
         if depth >= cap:
-            # full: drop the innermost pair first (counted; see module docstring)
-            _lower_depth(i, depth - 2, u0, js[i, D_PREV], jc, js, stk, bk)
+            # full: drop the interior pair that matters least (counted; see module docstring)
+            _forced_merge(i, jc, js, stk, bk)
             js[i, N_FORCED] += 1.0
             depth -= 2
-            f, d, e, kt = _eval_at(i, u0, jc, js, stk)
-            js[i, F_PREV] = f
-            js[i, E_PREV] = e
         stk[i, depth, 0] = u0
         stk[i, depth, 1] = js[i, F_PREV]
         stk[i, depth, 2] = js[i, E_PREV]
