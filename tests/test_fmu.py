@@ -489,3 +489,38 @@ def test_negative_step_refused(slave_of):
     with pytest.raises(Exception):
         s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=-1e-3)
     assert any(st == 3 and "step size" in msg for st, msg in s.log)
+
+
+def test_parameter_set_after_initialization_refused(slave_of):
+    """FMI 2.0 sec. 2.2.7: a parameter of variability "fixed" cannot change after
+    initialization; the value is ignored and an error-status message names it."""
+    s = slave_of("tray_nominal")
+    s.init()
+    s.set({"mode[1].joint.chi": -0.2})
+    assert s.fmu.getReal([s.vr["mode[1].joint.chi"]])[0] == -0.45
+    assert any(st == 3 and "mode[1].joint.chi" in msg and "before initialization" in msg
+               for st, msg in s.log)
+
+
+def test_build_forgets_its_staging_modules(fmus):
+    """pythonfmu imports the entry module at build time; the build must not leave it (or the
+    core package, or the staging folder) behind, or this process would run the staging copy."""
+    import sys
+    for r in fmus.values():
+        assert r.model_identifier not in sys.modules or \
+            "jointfmu_build_" not in (sys.modules[r.model_identifier].__file__ or "")
+        assert not any(m == r.core_package or m.startswith(r.core_package + ".")
+                       for m, mod in sys.modules.items()
+                       if "jointfmu_build_" in (getattr(mod, "__file__", "") or ""))
+    assert not any("jointfmu_build_" in p for p in sys.path)
+
+
+def test_new_source_gives_new_names(psets, monkeypatch):
+    """Two versions of jointfmu must not share module names in one process either."""
+    from jointfmu import build as jbuild
+    ps = psets["tray_nominal"]
+    before = jbuild.fmu_names(ps)
+    monkeypatch.setattr(jbuild, "_source_hash", lambda: "0" * 64)
+    after = jbuild.fmu_names(ps)
+    assert before[0] != after[0] and before[1] != after[1]
+    assert after[0].startswith("Jfmu_avionics_tray_") and after[1].startswith("jfmu_core_")
