@@ -1,0 +1,304 @@
+"""The modal core (ModalSimulator) against exact linear solutions, Segalman's closed forms and the
+SciPy reference integration (jointfmu.reference, independent event-driven formulation)."""
+import math
+
+import numpy as np
+import pytest
+
+from jointfmu import reference
+from jointfmu.errors import InputError
+from jointfmu.integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator
+from jointfmu.iwan import dissipation_per_cycle, joint_constants
+from jointfmu.params import parse_parameter_set
+
+TOL_DEFAULT = 1e-3  # core vs reference at default settings, fraction of peak (issue 2)
+
+
+def make_set(modes, base_mass=None, points=()):
+    data = {"format": "jointfmu-params/1",
+            "structure": {"name": "testrig", "build": "T1", "description": "test"},
+            "modes": [], "points": list(points)}
+    for k, (f0, zeta, frac, Fs, chi, beta) in enumerate(modes):
+        m = {"label": f"m{k + 1}", "f0": f0, "zeta": zeta,
+             "joint": {"Fs": Fs, "Kt": frac * (2 * math.pi * f0) ** 2, "chi": chi, "beta": beta}}
+        if base_mass is not None:
+            m["base_participation"] = 0.4
+        data["modes"].append(m)
+    if base_mass is not None:
+        data["base"] = {"total_mass": base_mass, "direction": "z"}
+    return parse_parameter_set(data)
+
+
+ONE = make_set([(100.0, 0.003, 0.25, 1.0, -0.5, 0.2)])
+# heavily damped: a quasi-static drive leaves no free ripple (whose extra small loops would add dissipation)
+QUASI = make_set([(100.0, 0.3, 0.25, 1.0, -0.5, 0.2)])
+FIVE = make_set([(31.0, 0.004, 0.2, 2.0, -0.45, 0.2), (87.0, 0.003, 0.25, 1.5, -0.6, 0.0),
+                 (150.0, 0.002, 0.12, 1.0, -0.3, 0.5), (260.0, 0.003, 0.3, 0.8, -0.8, 0.1),
+                 (410.0, 0.002, 0.08, 0.5, 0.0, 1.0)])
+
+
+def phimax(ps):
+    return np.array([joint_constants(m.joint.Fs, m.joint.Kt, m.joint.chi, m.joint.beta).phimax for m in ps.modes])
+
+
+def run_core(ps, t, f, **kw):
+    """Step the core over the communication grid t with modal force f[k] held on [t_k, t_k+1)."""
+    sim = ModalSimulator(ps, kernel="python", **kw)
+    out = np.empty((len(t), ps.n_modes))
+    out[0] = sim.q
+    for k in range(len(t) - 1):
+        sim.set_inputs(modal_forces=f[k])
+        ok, msg = sim.step(t[k + 1] - t[k])
+        assert ok, msg
+        out[k + 1] = sim.q
+    return out, sim
+
+
+def forcing(kind, ps, t, level, seed=0):
+    """Held modal forces (M-1, N): level is in units of each mode's slip force."""
+    n = len(t) - 1
+    Fs = np.array([m.joint.Fs for m in ps.modes])
+    f0 = np.array([m.f0 for m in ps.modes])
+    tt = t[:-1, None]
+    if kind == "ringdown":  # a short pulse, then free decay
+        f = np.where(tt < 0.5 / f0.max(), level * Fs * 20.0, 0.0)
+    elif kind == "sine":    # near each mode's resonance, then free
+        f = level * Fs * np.sin(2 * np.pi * 0.95 * f0 * tt) * (tt < 0.12)
+    elif kind == "random":  # white held random values, then free
+        rng = np.random.default_rng(seed)
+        f = level * Fs * rng.standard_normal((n, len(Fs))) * (tt < 0.12)
+    else:
+        raise ValueError(kind)
+    return f
+
+
+# ------------------------------------------------------------------------- linear limit
+@pytest.mark.parametrize("chi", [-0.5, 0.0])
+def test_linear_limit_matches_exact_damped_oscillator(chi):
+    """Tiny motion: the joint acts as its stiffness K_T, so the mode is the linear oscillator with
+    f0 and zeta.  Exact solution of q'' + 2 zeta w q' + w^2 q = F (step) from rest (common
+    practice): q = F/w^2 (1 - e^(-zeta w t) (cos wd t + zeta w / wd sin wd t)), wd = w sqrt(1-zeta^2).
+    Nonlinearity scales as (A/phimax)^(chi+1), hence the tiny level."""
+    ps = make_set([(100.0, 0.01, 0.3, 1.0, chi, 0.2)])
+    w = 2 * math.pi * 100.0
+    z = 0.01
+    wd = w * math.sqrt(1 - z * z)
+    F = 1e-14 * w * w * phimax(ps)[0]
+    t = np.arange(0, 0.1, 1e-3)
+    q, _ = run_core(ps, t, np.full((len(t) - 1, 1), F))
+    exact = F / w**2 * (1 - np.exp(-z * w * t) * (np.cos(wd * t) + z * w / wd * np.sin(wd * t)))
+    assert np.abs(q[:, 0] - exact).max() <= 1e-6 * np.abs(exact).max()
+
+
+# ----------------------------------------------------------------- dissipation per cycle
+@pytest.mark.parametrize("amp", [0.01, 0.03, 0.1, 0.3, 0.6, 0.9])
+def test_dissipation_per_cycle_in_the_modal_core(amp):
+    """Quasi-static sine drive of one mode (20x below resonance): the joint energy dissipated over
+    a cycle equals Segalman's closed form D(A) = 4 R A^(chi+3)/((chi+2)(chi+3)) (Segalman 2005)
+    with A the half peak-to-peak modal displacement of that cycle, within 0.5 %."""
+    ps = QUASI
+    m = ps.modes[0]
+    j = m.joint
+    pm = phimax(ps)[0]
+    f_drive = 5.0
+    F = amp * pm * (2 * math.pi * m.f0) ** 2
+    sim = ModalSimulator(ps, kernel="python")
+    dt = 1.0 / (f_drive * 400)
+    q, e = [], []
+    for k in range(3 * 400):
+        sim.set_inputs(modal_forces=[F * math.sin(2 * math.pi * f_drive * (k + 0.5) * dt)])
+        sim.step(dt)
+        q.append(sim.q[0])
+        e.append(sim.energy_joint)
+    q, e = np.array(q), np.array(e)
+    last = slice(800, 1200)   # the third cycle, after the virgin loading
+    A = (q[last].max() - q[last].min()) / 2
+    D = e[1199] - e[799]
+    expected = float(dissipation_per_cycle(A, j.Fs, j.Kt, j.chi, j.beta))
+    assert D == pytest.approx(expected, rel=5e-3)
+
+
+def test_damping_ratio_slope_is_one_plus_chi():
+    """Equivalent joint damping zeta_J = D/(2 pi k A^2) ~ A^(chi+1) in micro-slip (Segalman 2005;
+    physics sheet sec. 5): the log-log slope of the simulated D/A^2 over 1e-3..1e-1 phimax."""
+    ps = QUASI
+    chi = ps.modes[0].joint.chi
+    pm = phimax(ps)[0]
+    w2 = (2 * math.pi * ps.modes[0].f0) ** 2
+    amps, zetas = [], []
+    for level in np.geomspace(1e-3, 1e-1, 5):
+        sim = ModalSimulator(ps, kernel="python")
+        dt = 1.0 / 2000
+        q, e = [], []
+        for k in range(1200):
+            sim.set_inputs(modal_forces=[level * pm * w2 * math.sin(2 * math.pi * 5.0 * (k + 0.5) * dt)])
+            sim.step(dt)
+            q.append(sim.q[0])
+            e.append(sim.energy_joint)
+        A = (max(q[800:]) - min(q[800:])) / 2
+        amps.append(A)
+        zetas.append((e[1199] - e[799]) / (2 * math.pi * w2 * A * A))
+    slope = np.polyfit(np.log(amps), np.log(zetas), 1)[0]
+    assert slope == pytest.approx(1 + chi, abs=0.01)
+
+
+# ------------------------------------------------------------------------ energy balance
+@pytest.mark.parametrize("level", [0.05, 3.0])
+def test_energy_balance_closes(level):
+    """initial + input = kinetic + spring + joint stored + joint dissipated + viscous
+    (conservation of energy; the joint's stored and dissipated parts in closed form).  The core's
+    balance error is its discretization error: <= 1e-6 of the input at 640 steps per period, and
+    it falls at least as h^2."""
+    ps = ONE
+    t = np.arange(0, 0.3, 1e-3)
+    f = forcing("sine", ps, t, level)
+    res = []
+    for spp in (80, 160, 640):
+        _, sim = run_core(ps, t, f, steps_per_period=spp)
+        res.append(abs(sim.energy_residual) / sim.energy_input)
+    assert res[2] <= 1e-6
+    assert math.log2(res[0] / res[1]) >= 2.0
+    assert 0.05 < sim.energy_joint / sim.energy_input < 1.0  # the joint does dissipate here
+
+
+# --------------------------------------------------------------------- convergence order
+@pytest.mark.parametrize("level", [0.05, 3.0])
+def test_convergence_order_at_least_two(level):
+    """Error against the reference (rtol 1e-11) at 20, 40, 80 steps per period: observed order
+    log2(e_h / e_h/2) >= 2 (the scheme is second order overall, third where g is smooth)."""
+    ps = ONE
+    t = np.arange(0, 0.2, 1e-3)
+    f = forcing("sine", ps, t, level)
+    ref = reference.simulate(ps, t, f)["q"]
+    errs = [np.abs(run_core(ps, t, f, steps_per_period=s)[0] - ref).max() for s in (20, 40, 80)]
+    orders = np.log2(np.array(errs[:-1]) / np.array(errs[1:]))
+    assert orders.min() >= 2.0, orders
+
+
+# -------------------------------------------------------------------- core vs reference
+@pytest.mark.parametrize("ps_name", ["one", "five"])
+@pytest.mark.parametrize("kind", ["ringdown", "sine", "random"])
+@pytest.mark.parametrize("regime,level", [("micro", 0.02), ("macro", 3.0)])
+def test_core_matches_reference_at_default_settings(ps_name, kind, regime, level):
+    """Default steps per period: q within 1e-3 of its peak, every mode, against the SciPy
+    reference with the same held inputs; the run reaches the intended regime."""
+    ps = ONE if ps_name == "one" else FIVE
+    t = np.arange(0, 0.2, 1e-3)
+    f = forcing(kind, ps, t, level if kind != "ringdown" else level * 0.3, seed=3)
+    ref = reference.simulate(ps, t, f)["q"]
+    got, sim = run_core(ps, t, f)
+    assert sim.steps_per_period == DEFAULT_STEPS_PER_PERIOD
+    peak = np.abs(ref).max(axis=0)
+    err = np.abs(got - ref).max(axis=0)
+    assert np.all(err <= TOL_DEFAULT * peak), err / peak
+    reach = peak / phimax(ps)
+    if regime == "macro":
+        assert reach.max() > 1.0
+    else:
+        assert reach.max() < 1.0
+
+
+# ----------------------------------------------------------------- contract of step()
+def test_step_contract_and_state_round_trip():
+    """Zero steps are no-ops, a restored state continues bit for bit, results are deterministic."""
+    ps = FIVE
+    t = np.arange(0, 0.05, 1e-3)
+    f = forcing("random", ps, t, 2.0, seed=5)
+    sim = ModalSimulator(ps, kernel="python")
+    for k in range(25):
+        sim.set_inputs(modal_forces=f[k])
+        sim.step(1e-3)
+    before = sim.q.copy()
+    assert sim.step(0.0) == (True, "")
+    assert np.array_equal(sim.q, before)
+    saved = sim.get_state()
+    rest = []
+    for k in range(25, 49):
+        sim.set_inputs(modal_forces=f[k])
+        sim.step(1e-3)
+        rest.append(np.r_[sim.q, sim.qdot, sim.joint_force, sim.energy_joint])
+    other = ModalSimulator(ps, kernel="python")
+    other.set_state(saved)
+    for k, row in zip(range(25, 49), rest):
+        other.set_inputs(modal_forces=f[k])
+        other.step(1e-3)
+        assert np.array_equal(np.r_[other.q, other.qdot, other.joint_force, other.energy_joint], row)
+
+
+def test_failed_step_keeps_the_state(monkeypatch):
+    """A step that fails midway (here: the kernel raises after doing real work, popping loops
+    below the starting depth) is undone exactly, stack included."""
+    from jointfmu import integrate
+
+    ps = ONE
+    sim = ModalSimulator(ps, kernel="python")
+    pm = phimax(ps)[0]
+    w2 = (2 * math.pi * 100.0) ** 2
+    for level in (0.8, -0.6, 0.4, -0.2, 0.1):   # nested loops on the stack
+        sim.set_inputs(modal_forces=[level * pm * w2])
+        sim.step(0.5)
+    assert sim.stack_depth[0] >= 4
+    sim.set_inputs(modal_forces=[-2.0 * pm * w2])   # will wipe out every loop
+    state = sim.get_state()
+    stack = sim._stk.copy()
+    real = sim._advance
+
+    def failing(*args):
+        real(*args)
+        raise FloatingPointError("injected")
+
+    monkeypatch.setattr(sim, "_advance", failing)
+    ok, msg = sim.step(0.1)
+    assert not ok and "injected" in msg and "state kept" in msg
+    assert sim.get_state() == state
+    assert np.array_equal(sim._stk[:, : sim.stack_depth.max()], stack[:, : sim.stack_depth.max()])
+
+
+@pytest.mark.parametrize("bad,msg", [
+    (dict(modal_forces=[float("nan")]), "must be finite"),
+    (dict(modal_forces=[1.0, 2.0]), "expected 1 values"),
+    (dict(modal_forces=[1e300]), "|value| <="),
+    (dict(base_acc=1.0), "no [base] mounting"),
+])
+def test_bad_inputs_rejected_and_nothing_changed(bad, msg):
+    sim = ModalSimulator(ONE, kernel="python")
+    sim.set_inputs(modal_forces=[0.5])
+    with pytest.raises(InputError, match=None) as e:
+        sim.set_inputs(**bad)
+    assert msg in str(e.value)
+    assert np.array_equal(sim.modal_force, [0.5])
+
+
+@pytest.mark.parametrize("dt", [float("nan"), -1e-3, float("inf")])
+def test_bad_step_sizes_refused(dt):
+    sim = ModalSimulator(ONE, kernel="python")
+    ok, msg = sim.step(dt)
+    assert not ok and "finite and >= 0" in msg and sim.time == 0.0
+
+
+def test_bad_settings_rejected():
+    with pytest.raises(InputError, match="steps_per_period"):
+        ModalSimulator(ONE, steps_per_period=4)
+    with pytest.raises(InputError, match="kernel"):
+        ModalSimulator(ONE, kernel="fortran")
+
+
+def test_point_outputs_and_base_force():
+    """Point motion is the mode-shape sum; the interface force obeys Newton's second law for the
+    whole structure, F_base = sum_p r_p F_p - M a_b - sum_i Gamma_i q_i'' (common practice,
+    modal effective mass; see modal.py), checked here in a static limit: a constant point force
+    with no base motion comes out at the base, and a constant base acceleration gives -M a_b."""
+    pts = [{"label": "tip", "role": "both", "direction": "+z", "shape": [0.3, -0.2], "base_factor": 1.0}]
+    ps = make_set([(50.0, 0.2, 0.2, 1e6, -0.5, 0.1), (120.0, 0.2, 0.2, 1e6, -0.5, 0.1)], base_mass=2.0,
+                  points=pts)
+    sim = ModalSimulator(ps, kernel="python")
+    sim.set_inputs(point_forces=[3.0])
+    for _ in range(200):
+        sim.step(0.01)   # heavily damped: settles
+    assert sim.base_force == pytest.approx(3.0, rel=1e-6)
+    assert sim.point_x[0] == pytest.approx(0.3 * sim.q[0] - 0.2 * sim.q[1])
+    sim.set_inputs(point_forces=[0.0], base_acc=9.81)
+    for _ in range(200):
+        sim.step(0.01)
+    assert sim.base_force == pytest.approx(-2.0 * 9.81, rel=1e-6)
+    assert sim.point_a[0] == pytest.approx(9.81, rel=1e-6)   # absolute: moves with the base
