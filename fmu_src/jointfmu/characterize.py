@@ -353,7 +353,8 @@ class RingDown:
     q : ndarray, shape (n+1, N)
         Modal displacements [m sqrt(kg)].
     point_a : ndarray, shape (n+1, n_out)
-        Absolute accelerations at the output points [m/s^2].
+        Absolute accelerations at the output points [m/s^2].  Samples 0 and 1 are taken while the
+        pulse acts (the FMU reports 0 at sample 0, before its first step).
     output_labels : tuple of str
         Output point labels (columns of ``point_a``).
     impulses : ndarray, shape (N,)
@@ -426,9 +427,9 @@ class CoreRunner:
             ok, msg = sim.step(dt)
             if not ok:
                 raise SimulationError(f"ring-down of {params.set_id}: {msg}")
+            q[k], a[k] = sim.q, sim.point_a  # read before the input changes, as fmpy does
             if k == 1:
                 sim.set_inputs(modal_forces=zero)
-            q[k], a[k] = sim.q, sim.point_a
         return RingDown(np.arange(n_steps + 1) * dt, q, a,
                         tuple(p.label for p in params.output_points), imp, dt, "core")
 
