@@ -7,7 +7,7 @@ common practice).
 from __future__ import annotations
 
 import csv
-import shutil
+import os
 from pathlib import Path
 
 import numpy as np
@@ -41,6 +41,9 @@ def test_build_prints_where_and_default_path_outside_repo(tmp_path, capsys, monk
     assert expected.is_file()
     assert str(expected) in capsys.readouterr().out
     assert [p.name for p in expected.parent.iterdir()] == [expected.name]   # no temp files
+    mask = os.umask(0)
+    os.umask(mask)
+    assert expected.stat().st_mode & 0o777 == 0o666 & ~mask     # not the temp file's 0600
 
 
 def test_default_path_inside_repo_is_repo_build(tmp_path):

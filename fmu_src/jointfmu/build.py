@@ -264,7 +264,7 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         os.close(fd)
         tmp_fmu = Path(tmp_name)
         _complete_fmu(raw, tmp_fmu, params, ident, core)
-        os.replace(tmp_fmu, out)
+        _publish(tmp_fmu, out)
         tmp_fmu = None
     except JointFmuError:
         raise
@@ -284,6 +284,15 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
             if name == ident or name == core or name.startswith(core + "."):
                 del sys.modules[name]
     return BuildResult(out, ident, core, params.set_id, params.content_hash())
+
+
+def _publish(tmp: Path, dest: Path) -> None:
+    """Give a finished temp file the permissions of a normal new file (mkstemp makes it 0600)
+    and move it into place in one step."""
+    mask = os.umask(0)
+    os.umask(mask)
+    os.chmod(tmp, 0o666 & ~mask)
+    os.replace(tmp, dest)
 
 
 def _jointfmu_version() -> str:
@@ -745,7 +754,7 @@ def write_csv_atomic(path: str | os.PathLike, header: Sequence[str],
             w.writerow(header)
             for r in rows:
                 w.writerow([repr(float(x)) for x in r])
-        os.replace(tmp, path)
+        _publish(Path(tmp), path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
@@ -820,7 +829,7 @@ def write_ssv(params_path: str | os.PathLike, output: str | os.PathLike | None =
     try:
         with os.fdopen(fd, "wb") as f:
             f.write(parameter_values_ssv(params))
-        os.replace(tmp, out)
+        _publish(Path(tmp), out)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
