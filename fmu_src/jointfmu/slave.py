@@ -14,6 +14,13 @@ pythonfmu 0.7.0 facts this class is written around (read in its source):
   ``Fmi2Status.error`` and ``do_step`` returns False (the wrapper reports ``fmi2Discard``).
 - FMU states are whatever ``_get_fmu_state`` returns; ``_fmu_state_to_bytes`` and
   ``_fmu_state_from_bytes`` are called on the class.  Here a state is an immutable ``bytes``.
+- ``self.log`` messages reach the host's logger only while debug logging is on
+  (``loggingOn`` at fmi2Instantiate, or fmi2SetDebugLogging), whatever their status; with it
+  off the host sees only the returned status.
+- pythonfmu cannot return fmi2Error from Python: ``do_step`` -> True/False gives fmi2OK or
+  fmi2Discard, every other method fmi2OK unless it raises (fmi2Fatal).  Out-of-range parameters
+  are therefore reported at exit_initialization_mode by an error-status message, and every
+  later ``do_step`` refuses to run.
 """
 from __future__ import annotations
 
