@@ -524,3 +524,31 @@ def test_new_source_gives_new_names(psets, monkeypatch):
     after = jbuild.fmu_names(ps)
     assert before[0] != after[0] and before[1] != after[1]
     assert after[0].startswith("Jfmu_avionics_tray_") and after[1].startswith("jfmu_core_")
+
+
+def test_structure_without_base(tmp_path, psets):
+    """A set without [base]: no base.acceleration / base.force, validate_fmu clean, and a
+    point-force run against the reference (f = phi F)."""
+    from jointfmu.params import parse_parameter_set
+    d = psets["tray_nominal"].to_dict()
+    d.pop("base")
+    for m in d["modes"]:
+        m.pop("base_participation", None)
+    d["structure"]["build"] = "fixed-base variant"
+    ps = parse_parameter_set(d)
+    toml = tmp_path / "fixed.toml"
+    toml.write_text(ps.to_toml())
+    r = build_fmu(toml, tmp_path / "fixed.fmu")
+    assert validate_fmu(str(r.path)) == []
+    s = Slave(r.path)
+    try:
+        assert "base.acceleration" not in s.vr and "base.force" not in s.vr
+        s.init()
+        t = np.arange(201) * 2e-4
+        F = 30.0 * np.sin(2 * np.pi * 131.0 * t)
+        out = s.run(t, {"point.psu_foot.force": F},
+                    [f"mode[{i + 1}].q" for i in range(len(ps.modes))])
+    finally:
+        s.close()
+    assert_close_to_reference(ps, t, modal_force_of(ps, point_forces={"psu_foot": F}, M=len(t)),
+                              out, "no base")
