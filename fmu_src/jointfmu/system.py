@@ -850,7 +850,12 @@ def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=Non
     from .params import load_parameter_set
 
     s = settings if isinstance(settings, SystemSettings) else settings_from_dict(settings or {})
-    ps = load_parameter_set(params_path)
+    if params_path is None:  # the parameter set bundled in the FMU
+        from .build import read_fmu_info
+
+        ps = read_fmu_info(fmu_path)["params"]
+    else:
+        ps = load_parameter_set(params_path)
     with FmuStructure(fmu_path, instance_name=f"{case}") as st:
         run = run_system(st, case, controller_on, s)
     row = {"build": ps.build, "set_id": ps.set_id, "params_hash": ps.short_hash(), "case": case,

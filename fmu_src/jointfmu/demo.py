@@ -1,0 +1,716 @@
+"""``jointfmu demo``: a systems engineer's day on the shipped example, in one command.
+
+Steps (each is also a command of its own):
+
+1. ``jointfmu check``      validate the three builds of the avionics tray (examples/tray_*.toml);
+2. ``jointfmu build``      build their FMUs;
+3. ``jointfmu report``     characterization report comparing the builds;
+4. ``jointfmu sweep``      every build x load case x controller off/on through the co-simulation
+   system (:mod:`.system`) on Dask (:mod:`.sweep`); ``jointfmu cosim`` is one such run;
+5. system page           summary table and plots of the sweep (``system.html``);
+6. ``jointfmu linearize``  equivalent-linear models for the controls team at the amplitude that
+   matters: per build, the sine-equivalent modal amplitudes (sqrt(2) x RMS of each mode) of the
+   load case with the largest RMS tip acceleration, controller off.
+
+The example data are invented (see examples/README.md).  A fitted model is no substitute for
+qualification testing; defer to the applicable codes, standards and licensed engineering
+practice.
+"""
+from __future__ import annotations
+
+import argparse
+import html
+import json
+import math
+import os
+import tempfile
+import time
+from contextlib import nullcontext
+from dataclasses import replace
+from pathlib import Path
+from typing import Sequence
+
+from .errors import InputError, JointFmuError, ParameterError
+
+__all__ = ["CAUTION", "EXAMPLE_FILES", "find_examples", "run_demo", "write_system_page",
+           "add_cosim_args", "cmd_cosim", "add_sweep_args", "cmd_sweep", "add_demo_args",
+           "cmd_demo"]
+
+#: Printed by the demo and written on its pages.
+CAUTION = ("A fitted model is no substitute for qualification testing; defer to the applicable "
+           "codes, standards and licensed engineering practice.")
+
+#: The shipped example builds, in the order they are compared.
+EXAMPLE_FILES = ("tray_nominal.toml", "tray_undertorqued.toml", "tray_worn.toml")
+
+
+def find_examples(folder=None) -> list[Path]:
+    """Paths of the three example parameter files.
+
+    Parameters
+    ----------
+    folder : path-like, optional
+        Folder holding ``tray_*.toml``; default the ``examples/`` folder of the source tree.
+
+    Raises
+    ------
+    InputError
+        When the folder or a file is missing.
+    """
+    if folder is None:
+        here = Path(__file__).resolve()
+        candidates = [d / "examples" for d in here.parents[:4]] + [Path.cwd() / "examples"]
+        folder = next((c for c in candidates if (c / EXAMPLE_FILES[0]).is_file()), None)
+        if folder is None:
+            raise InputError("the shipped examples (examples/tray_*.toml) were not found next to "
+                             "the package or in ./examples; give them with --params FILE ...")
+    folder = Path(folder)
+    files = [folder / f for f in EXAMPLE_FILES]
+    missing = [str(f) for f in files if not f.is_file()]
+    if missing:
+        raise InputError(f"example file(s) missing: {', '.join(missing)}")
+    return files
+
+
+# ------------------------------------------------------------------------------ helpers
+def _atomic_text(path: Path, text: str) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            f.write(text)
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+def _atomic_figure(fig, path: Path) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    os.close(fd)
+    try:
+        fig.savefig(tmp, format="png", dpi=100)
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+def _settings(args) -> "object":
+    from .system import ControllerSettings, SystemSettings
+
+    c = ControllerSettings(gain=args.gain, tau=args.tau, force_limit=args.force_limit)
+    return SystemSettings(step=args.step, duration=args.duration, seed=args.seed,
+                          level=args.level, controller=c)
+
+
+def _controller_modes(text: str) -> tuple[bool, ...]:
+    table = {"off": (False,), "on": (True,), "both": (False, True)}
+    if text not in table:
+        raise InputError(f"--controller {text!r}: allowed are off, on, both")
+    return table[text]
+
+
+def _cases(names: Sequence[str] | None) -> list[str]:
+    from .system import LOAD_CASES
+
+    if not names:
+        return list(LOAD_CASES)
+    bad = [n for n in names if n not in LOAD_CASES]
+    if bad:
+        raise InputError(f"load case(s) {', '.join(map(repr, bad))}: allowed are "
+                         f"{', '.join(LOAD_CASES)}")
+    return list(names)
+
+
+def _build_all(param_files: Sequence[Path], fmu_dir: Path) -> list[tuple[Path, Path]]:
+    from .build import build_fmu
+    from .params import load_parameter_set
+
+    out = []
+    for p in param_files:
+        ps = load_parameter_set(p)
+        target = fmu_dir / f"{Path(p).stem}.fmu"
+        r = build_fmu(p, target)
+        out.append((Path(p), r.path))
+    return out
+
+
+def _sweep_tasks(builds, cases, controller, settings, history_dir, quick: bool):
+    from .sweep import system_tasks
+    from .system import LOAD_CASES
+
+    if not quick or settings.duration is not None:
+        return system_tasks(builds, cases, controller, settings, history_dir)
+    tasks = []
+    for c in cases:
+        s = replace(settings, duration=LOAD_CASES[c].quick_duration)
+        tasks += system_tasks(builds, [c], controller, s, history_dir)
+    return tasks
+
+
+# ----------------------------------------------------------------------------- cosim CLI
+def _add_system_options(p: argparse.ArgumentParser) -> None:
+    from .system import ControllerSettings, SystemSettings
+
+    d, c = SystemSettings(), ControllerSettings()
+    g = p.add_argument_group("system")
+    g.add_argument("--step", type=float, default=d.step, metavar="S",
+                   help=f"communication step [s] (default {d.step:g})")
+    g.add_argument("--duration", type=float, default=None, metavar="S",
+                   help="simulated time per run [s] (default: each load case's own)")
+    g.add_argument("--seed", type=int, default=d.seed, help=f"seed of the random load (default {d.seed})")
+    g.add_argument("--level", type=float, default=d.level, metavar="X",
+                   help="scale on the load profile (default 1)")
+    g.add_argument("--gain", type=float, default=c.gain, metavar="NS_PER_M",
+                   help=f"controller velocity gain [N s/m] (default {c.gain:g})")
+    g.add_argument("--tau", type=float, default=c.tau, metavar="S",
+                   help=f"actuator time constant [s] (default {c.tau:g})")
+    g.add_argument("--force-limit", type=float, default=c.force_limit, metavar="N",
+                   help=f"actuator force limit [N] (default {c.force_limit:g})")
+
+
+def add_cosim_args(p: argparse.ArgumentParser) -> None:
+    """Arguments of ``jointfmu cosim``."""
+    from .system import LOAD_CASES
+
+    p.add_argument("model", metavar="FMU|PARAMS", help="an FMU, or a parameter file to build first")
+    p.add_argument("--case", required=True, choices=list(LOAD_CASES), help="load case")
+    p.add_argument("--controller", default="off", choices=["off", "on"],
+                   help="active damper off or on (default off)")
+    p.add_argument("-o", "--output", required=True, metavar="FILE",
+                   help="time histories to write (.parquet or .csv)")
+    _add_system_options(p)
+
+
+def cmd_cosim(args) -> int:
+    """One system run: loads model -> tray FMU <-> controller; histories and a summary."""
+    import pandas as pd
+
+    from .build import build_fmu
+    from .sweep import write_table
+    from .system import run_case
+
+    out = Path(args.output)
+    if out.suffix.lower() not in (".parquet", ".csv"):
+        raise InputError(f"--output {str(out)!r}: allowed suffixes are .parquet and .csv")
+    s = _settings(args)
+    model = Path(args.model)
+    with tempfile.TemporaryDirectory(prefix="jointfmu_cosim_") as tmp:
+        if model.suffix.lower() == ".fmu":
+            fmu, params = model, None
+        else:
+            fmu, params = build_fmu(model, Path(tmp) / "m.fmu").path, model
+        hist = Path(tmp) / "h.parquet"
+        row = run_case(params, fmu, args.case, args.controller == "on", s, history_path=hist)
+        write_table(pd.read_parquet(hist), out)
+    print(f"{row['set_id']}  case {args.case}, controller {args.controller}, "
+          f"{row['duration']:g} s at h = {row['step']:g} s ({row['wall_time']:.1f} s wall)")
+    print(f"  tip acceleration   peak {row['tip_acc_peak_g']:8.2f} g   RMS {row['tip_acc_rms_g']:7.2f} g")
+    print(f"  interface force    peak {row['base_force_peak']:8.1f} N")
+    print(f"  joint dissipation       {row['energy_joint']:8.4f} J   (viscous {row['energy_viscous']:.4f} J)")
+    print(f"  actuator force     peak {row['actuator_force_peak']:8.2f} N   "
+          f"at limit {100 * row['actuator_saturated']:.1f} % of steps")
+    print(f"  equivalent linear  tip RMS {row['lin_rms_diff']:+.1%}, peak {row['lin_peak_diff']:+.1%} "
+          f"vs nonlinear ({row['lin_model']})")
+    print(f"wrote {out}")
+    print(CAUTION)
+    return 0
+
+
+# ----------------------------------------------------------------------------- sweep CLI
+def add_sweep_args(p: argparse.ArgumentParser) -> None:
+    """Arguments of ``jointfmu sweep``."""
+    from .system import LOAD_CASES
+
+    p.add_argument("params", nargs="+", metavar="PARAMS", help="parameter files (one per build)")
+    p.add_argument("--cases", nargs="+", metavar="CASE", default=None,
+                   help=f"load cases (default all: {', '.join(LOAD_CASES)})")
+    p.add_argument("--controller", default="both", choices=["off", "on", "both"],
+                   help="controller off, on, or both (default both)")
+    p.add_argument("--out", default="build/sweep", metavar="DIR",
+                   help="folder for FMUs, results.parquet and histories (default build/sweep)")
+    p.add_argument("--scheduler", default=None, metavar="ADDR",
+                   help="Dask scheduler address (tcp://host:8786); default a local cluster")
+    p.add_argument("--workers", type=int, default=2, metavar="N",
+                   help="worker processes of the local cluster (default 2)")
+    p.add_argument("--loop", action="store_true", help="run in this process, no Dask")
+    p.add_argument("--quick", action="store_true", help="short runs (each case's quick duration)")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    _add_system_options(p)
+
+
+def cmd_sweep(args) -> int:
+    """Builds x load cases x controller through the system, on Dask; rerun skips done rows."""
+    from .sweep import raise_failures, run_tasks
+
+    files = [Path(p) for p in args.params]
+    _check_files(files)
+    out = Path(args.out)
+    builds = _build_all(files, out / "fmus")
+    tasks = _sweep_tasks(builds, _cases(args.cases), _controller_modes(args.controller),
+                         _settings(args), out / "histories", args.quick)
+    res = run_tasks(tasks, out / "results.parquet", executor="loop" if args.loop else "dask",
+                    scheduler=args.scheduler, n_workers=args.workers,
+                    progress=not args.no_progress)
+    print(f"{len(res.ran)} run(s) done, {len(res.skipped)} already in {res.path} "
+          f"({res.wall_time:.1f} s)")
+    print(_text_table(res.table, [t.key for t in tasks]))
+    raise_failures(res)
+    print(CAUTION)
+    return 0
+
+
+def _check_files(files: Sequence[Path]) -> None:
+    from .params import check_parameter_file
+
+    problems = []
+    for f in files:
+        problems += check_parameter_file(f)
+    if problems:
+        raise ParameterError(problems)
+
+
+def _text_table(df, keys=None) -> str:
+    if keys is not None:
+        df = df[df["key"].isin(keys)]
+    if len(df) == 0:
+        return "(no results)"
+    cols = ["build", "case", "controller", "tip_acc_peak_g", "tip_acc_rms_g", "base_force_peak",
+            "energy_joint", "lin_rms_diff"]
+    head = f"{'build':<12} {'case':<15} {'ctrl':<4} {'tip pk g':>9} {'tip RMS g':>9} " \
+           f"{'F_if pk N':>10} {'E_joint J':>10} {'lin RMS':>8}"
+    lines = [head]
+    for _, r in df.sort_values(["build", "case", "controller"]).iterrows():
+        lines.append(f"{r['build']:<12} {r['case']:<15} {'on' if r['controller'] else 'off':<4} "
+                     f"{r['tip_acc_peak_g']:>9.2f} {r['tip_acc_rms_g']:>9.2f} "
+                     f"{r['base_force_peak']:>10.1f} {r['energy_joint']:>10.4f} "
+                     f"{r['lin_rms_diff']:>+8.1%}")
+    return "\n".join(lines)
+
+
+# ------------------------------------------------------------------------- system page
+def write_system_page(table, out_dir, history_dir=None, title="System co-simulation") -> dict:
+    """Summary table and plots of a system sweep: ``system.html`` and PNGs in ``out_dir``.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Rows of the sweep (:func:`.system.run_case` columns).
+    out_dir : path-like
+    history_dir : path-like, optional
+        Folder of the runs' history files, for the time-history plot.
+
+    Returns
+    -------
+    dict of str to Path
+        ``page``, ``summary_csv`` and each figure.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import numpy as np
+    import pandas as pd
+
+    from .system import G0, LOAD_CASES, ControllerSettings
+
+    out = Path(out_dir)
+    df = table.sort_values(["build", "case", "controller"]).reset_index(drop=True)
+    builds = list(dict.fromkeys(df["build"]))
+    cases = [c for c in LOAD_CASES if c in set(df["case"])]
+    paths: dict[str, Path] = {}
+
+    # 1. tip RMS and peak per case, build, controller
+    fig, axes = plt.subplots(1, len(cases), figsize=(4.2 * len(cases), 3.6), squeeze=False)
+    w = 0.38
+    for ax, case in zip(axes[0], cases):
+        x = np.arange(len(builds))
+        for j, on in enumerate((False, True)):
+            sel = df[(df["case"] == case) & (df["controller"] == on)].set_index("build")
+            vals = [sel["tip_acc_rms_g"].get(b, np.nan) for b in builds]
+            peaks = [sel["tip_acc_peak_g"].get(b, np.nan) for b in builds]
+            ax.bar(x + (j - 0.5) * w, vals, w, label=f"controller {'on' if on else 'off'} (RMS)",
+                   color=("tab:red", "tab:blue")[j])
+            ax.plot(x + (j - 0.5) * w, peaks, "v", color="k", ms=5,
+                    label="peak" if j == 0 else None)
+        ax.set_xticks(x, builds, fontsize=8)
+        ax.set_title(case)
+        ax.set_ylabel("tip acceleration [g]")
+        ax.grid(axis="y", alpha=0.3)
+    axes[0][0].legend(fontsize=7)
+    fig.tight_layout()
+    paths["fig_tip"] = _atomic_figure(fig, out / "system_tip_acceleration.png")
+    plt.close(fig)
+
+    # 2. joint energy and interface force
+    fig, axes = plt.subplots(1, 2, figsize=(10, 3.6))
+    labels = [f"{b}\n{c}" for b in builds for c in cases]
+    x = np.arange(len(labels))
+    for j, on in enumerate((False, True)):
+        sel = df[df["controller"] == on].set_index(["build", "case"])
+        e = [sel["energy_joint"].get((b, c), np.nan) for b in builds for c in cases]
+        f = [sel["base_force_peak"].get((b, c), np.nan) for b in builds for c in cases]
+        axes[0].bar(x + (j - 0.5) * w, e, w, color=("tab:red", "tab:blue")[j],
+                    label=f"controller {'on' if on else 'off'}")
+        axes[1].bar(x + (j - 0.5) * w, f, w, color=("tab:red", "tab:blue")[j])
+    for ax, yl in zip(axes, ("joint energy dissipated [J]", "peak interface force [N]")):
+        ax.set_xticks(x, labels, fontsize=6, rotation=90)
+        ax.set_ylabel(yl)
+        ax.grid(axis="y", alpha=0.3)
+    axes[0].legend(fontsize=7)
+    fig.tight_layout()
+    paths["fig_energy"] = _atomic_figure(fig, out / "system_joint_energy_force.png")
+    plt.close(fig)
+
+    # 3. equivalent linear vs nonlinear
+    fig, ax = plt.subplots(figsize=(4.8, 4.2))
+    for on, mk in ((False, "o"), (True, "s")):
+        sel = df[df["controller"] == on]
+        ax.plot(sel["tip_acc_rms_g"], sel["lin_tip_acc_rms"] / G0, mk, mfc="none",
+                label=f"controller {'on' if on else 'off'}")
+    lim = [0, 1.1 * float(np.nanmax(np.r_[df["tip_acc_rms_g"], df["lin_tip_acc_rms"] / G0]))]
+    ax.plot(lim, lim, "k--", lw=0.8, label="equal")
+    ax.set_xlabel("nonlinear (Iwan) tip RMS [g]")
+    ax.set_ylabel("equivalent-linear tip RMS [g]")
+    ax.legend(fontsize=7)
+    ax.grid(alpha=0.3)
+    fig.tight_layout()
+    paths["fig_linear"] = _atomic_figure(fig, out / "system_linear_vs_nonlinear.png")
+    plt.close(fig)
+
+    # 4. time histories of the worst case (largest tip RMS, controller off), every build
+    worst_case = None
+    if history_dir is not None and "history" in df:
+        off = df[df["controller"] == False]  # noqa: E712
+        if len(off):
+            worst_case = off.loc[off["tip_acc_rms"].idxmax(), "case"]
+            fig, axes = plt.subplots(len(builds), 1, figsize=(9, 2.3 * len(builds)),
+                                     sharex=True, squeeze=False)
+            for ax, b in zip(axes[:, 0], builds):
+                for on, col in ((False, "tab:red"), (True, "tab:blue")):
+                    sel = df[(df["build"] == b) & (df["case"] == worst_case)
+                             & (df["controller"] == on)]
+                    if not len(sel):
+                        continue
+                    hp = Path(history_dir) / str(sel.iloc[0]["history"])
+                    if hp.is_file():
+                        h = pd.read_parquet(hp, columns=["time", "point.tip.a"])
+                        ax.plot(h["time"], h["point.tip.a"] / G0, color=col, lw=0.6,
+                                label=f"controller {'on' if on else 'off'}")
+                ax.set_ylabel(f"{b}\ntip a [g]", fontsize=8)
+                ax.grid(alpha=0.3)
+            axes[0, 0].set_title(f"{worst_case}: tip acceleration")
+            axes[0, 0].legend(fontsize=7, loc="upper right")
+            axes[-1, 0].set_xlabel("time [s]")
+            fig.tight_layout()
+            paths["fig_history"] = _atomic_figure(fig, out / "system_worst_case_history.png")
+            plt.close(fig)
+
+    # summary CSV (small, for spreadsheets) beside the Parquet table
+    cols = ["key", "build", "case", "controller", "duration", "tip_acc_peak_g", "tip_acc_rms_g",
+            "base_force_peak", "energy_joint", "energy_viscous", "energy_input",
+            "actuator_force_peak", "actuator_saturated", "lin_tip_acc_rms", "lin_rms_diff",
+            "lin_peak_diff", "lin_waveform_err", "wall_time"]
+    summary = df[[c for c in cols if c in df]]
+    paths["summary_csv"] = _atomic_text(out / "system_summary.csv", summary.to_csv(index=False))
+
+    # the page
+    c = ControllerSettings()
+    e = html.escape
+    rows = []
+    for _, r in df.iterrows():
+        rows.append(
+            "<tr>" + "".join(f"<td>{e(str(v))}</td>" for v in (
+                r["build"], r["case"], "on" if r["controller"] else "off",
+                f"{r['duration']:g}", f"{r['tip_acc_peak_g']:.2f}", f"{r['tip_acc_rms_g']:.2f}",
+                f"{r['base_force_peak']:.1f}", f"{r['energy_joint']:.4f}",
+                f"{r['actuator_force_peak']:.1f}", f"{100 * r['actuator_saturated']:.1f}",
+                f"{100 * r['lin_rms_diff']:+.1f}", f"{100 * r['lin_peak_diff']:+.1f}")) + "</tr>")
+    # controller benefit per build and case
+    benefit = []
+    for b in builds:
+        for cs in cases:
+            a = df[(df["build"] == b) & (df["case"] == cs)].set_index("controller")
+            if False in a.index and True in a.index:
+                benefit.append(f"<tr><td>{e(b)}</td><td>{e(cs)}</td><td>"
+                               f"{100 * (a.loc[True, 'tip_acc_rms'] / a.loc[False, 'tip_acc_rms'] - 1):+.1f}"
+                               f"</td><td>{100 * (a.loc[True, 'base_force_peak'] / a.loc[False, 'base_force_peak'] - 1):+.1f}"
+                               f"</td></tr>")
+    figs = "".join(f'<p><img src="{e(p.name)}" alt="{e(k)}"></p>'
+                   for k, p in paths.items() if k.startswith("fig_"))
+    case_rows = "".join(f"<tr><td>{e(lc.name)}</td><td>{e(lc.description)}</td></tr>"
+                        for lc in LOAD_CASES.values() if lc.name in cases)
+    text = f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>{e(title)}</title>
+<style>body{{font-family:sans-serif;max-width:1100px;margin:2em auto}}
+table{{border-collapse:collapse;font-size:90%}}td,th{{border:1px solid #bbb;padding:2px 6px}}
+.caution{{border:2px solid #c00;padding:0.6em;background:#fee}}</style></head><body>
+<h1>{e(title)}</h1>
+<p class="caution"><b>Caution.</b> {e(CAUTION)} The builds, load cases and controller are
+invented demo data.</p>
+<h2>The system</h2>
+<p>Each tray build is its FMI 2.0 co-simulation FMU, stepped with fmpy in a master loop that
+exchanges values every communication step with a loads model (base acceleration of the chassis
+under the bracket) and an active damper at <code>{e(c.point)}</code>: force
+&minus;g&middot;v from the relative velocity sensed there, first-order actuator lag, force limit
+(defaults g = {c.gain:g} N s/m, &tau; = {c.tau * 1e3:g} ms, {c.force_limit:g} N).
+Interface force is the force through the bolted joints onto the bracket. "lin" columns: the
+equivalent-linear model at the run's own sine-equivalent modal amplitudes (&radic;2 &times; RMS),
+run through the same loop; the difference is in tip RMS and peak acceleration.</p>
+<table><tr><th>load case</th><th>what it is</th></tr>{case_rows}</table>
+<h2>Results</h2>
+<table id="system-results"><tr><th>build</th><th>case</th><th>controller</th><th>duration [s]</th>
+<th>tip peak [g]</th><th>tip RMS [g]</th><th>interface force peak [N]</th>
+<th>joint energy [J]</th><th>actuator peak [N]</th><th>at limit [%]</th>
+<th>lin &minus; nonlin tip RMS [%]</th><th>lin &minus; nonlin tip peak [%]</th></tr>
+{''.join(rows)}</table>
+<h2>What the controller buys</h2>
+<table id="controller-benefit"><tr><th>build</th><th>case</th><th>tip RMS change [%]</th>
+<th>interface force peak change [%]</th></tr>{''.join(benefit)}</table>
+<h2>Plots</h2>
+{figs}
+<p>Worst case (largest tip RMS, controller off): {e(str(worst_case))}.
+Full table: <code>results.parquet</code>; summary: <code>{e(paths['summary_csv'].name)}</code>.</p>
+<p class="caution">{e(CAUTION)}</p>
+</body></html>
+"""
+    paths["page"] = _atomic_text(out / "system.html", text)
+    return paths
+
+
+# ------------------------------------------------------------------------------ linear
+def amplitudes_that_matter(table, params_by_build) -> dict:
+    """Per build: the load case with the largest RMS tip acceleration (controller off) and its
+    sine-equivalent modal amplitudes sqrt(2) RMS(q_i) [m sqrt(kg)].
+
+    Returns
+    -------
+    dict of build -> dict with ``case``, ``amplitudes`` (list, shape (N,)), ``key``
+    """
+    out = {}
+    for b, ps in params_by_build.items():
+        sel = table[(table["build"] == b) & (table["controller"] == False)]  # noqa: E712
+        if not len(sel):
+            sel = table[table["build"] == b]
+        if not len(sel):
+            continue
+        r = sel.loc[sel["tip_acc_rms"].idxmax()]
+        out[b] = {"case": r["case"], "key": r["key"],
+                  "amplitudes": [float(r[f"q_amp_{i}"]) for i in range(1, ps.n_modes + 1)]}
+    return out
+
+
+def export_linear(params, amplitudes, out_dir, case: str) -> tuple[Path, str]:
+    """Save the equivalent-linear model of one build for the controls team.
+
+    Uses :func:`.linear.equivalent_linear` and ``LinearModel.save`` when that module is present;
+    otherwise saves the state space of :func:`.system.equivalent_linear_structure` (NumPy
+    ``.npz`` plus a JSON description).
+    """
+    out = Path(out_dir)
+    try:
+        from . import linear as _lin
+    except ImportError:
+        _lin = None
+    if _lin is not None:
+        ins = ["base.acceleration"] + [f"point.{p.label}.force" for p in params.input_points]
+        outs = [f"point.{p.label}.a" for p in params.output_points] + ["base.force"]
+        lm = _lin.equivalent_linear(params, amplitudes, ins, outs)
+        saved = lm.save(out)
+        return Path(saved) if saved is not None else out, "linear.equivalent_linear"
+    import numpy as np
+
+    from .system import equivalent_linear_structure
+
+    lin, how = equivalent_linear_structure(params, amplitudes)
+    out.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=".model.npz.", suffix=".part", dir=out)
+    os.close(fd)
+    with open(tmp, "wb") as f:
+        np.savez(f, A=lin.A, B=lin.B, C=lin.C, D=lin.D)
+    os.replace(tmp, out / "model.npz")
+    meta = {"set_id": params.set_id, "content_hash": params.content_hash(), "definition": how,
+            "load_case": case, "modal_amplitudes": list(map(float, amplitudes)),
+            "inputs": lin.inputs, "outputs": lin.outputs,
+            "state": [f"mode[{i}].q" for i in range(1, params.n_modes + 1)]
+            + [f"mode[{i}].qdot" for i in range(1, params.n_modes + 1)],
+            "caution": CAUTION}
+    _atomic_text(out / "model.json", json.dumps(meta, indent=2) + "\n")
+    return out, how
+
+
+# -------------------------------------------------------------------------------- demo
+def add_demo_args(p: argparse.ArgumentParser) -> None:
+    """Arguments of ``jointfmu demo``."""
+    p.add_argument("--out", default="build/demo", metavar="DIR",
+                   help="folder for everything the demo writes (default build/demo)")
+    p.add_argument("--quick", action="store_true",
+                   help="reduced size (short runs, small report): for tests and a first look")
+    p.add_argument("--scheduler", default=None, metavar="ADDR",
+                   help="Dask scheduler address (tcp://host:8786); default a local cluster")
+    p.add_argument("--workers", type=int, default=2, metavar="N",
+                   help="worker processes of the local cluster (default 2)")
+    p.add_argument("--params", nargs="+", default=None, metavar="PARAMS",
+                   help="parameter files instead of the shipped examples/tray_*.toml")
+    p.add_argument("--no-progress", action="store_true", help="no progress bars")
+
+
+def cmd_demo(args) -> int:
+    """The whole day in one command (see the module docstring)."""
+    files = [Path(p) for p in args.params] if args.params else find_examples()
+    summary = run_demo(files, args.out, quick=args.quick, scheduler=args.scheduler,
+                       n_workers=args.workers, progress=not args.no_progress)
+    print(summary["text"])
+    return 0
+
+
+def _report_step(param_sets, out_dir: Path, quick: bool, client) -> Path | None:
+    """Step 3: the characterization report (:func:`.report.write_report`)."""
+    from . import report as _report
+
+    kwargs = {}
+    import inspect
+
+    sig = inspect.signature(_report.write_report)
+    if "quick" in sig.parameters:
+        kwargs["quick"] = quick
+    res = _report.write_report(list(param_sets), out_dir, **kwargs)
+    if isinstance(res, (str, os.PathLike)):
+        return Path(res)
+    page = getattr(res, "page", None) or getattr(res, "html", None)
+    return Path(page) if page is not None else out_dir
+
+
+def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
+             scheduler: str | None = None, n_workers: int = 2, progress: bool = True,
+             client=None, log=print) -> dict:
+    """Run the demo; return what it wrote (paths) and a printable summary.
+
+    Parameters
+    ----------
+    param_files : sequence of path-like
+        The builds (default in the CLI: the shipped examples).
+    out_dir : path-like
+        Everything goes below it: ``fmus/``, ``report/``, ``system/``, ``linear/``.
+    quick : bool
+        Reduced size.
+    scheduler : str, optional
+        Dask scheduler address; default a local cluster of ``n_workers`` processes.
+    client : dask.distributed.Client, optional
+        Use this client (not closed); overrides ``scheduler``.
+    log : callable
+        Where progress lines go.
+
+    Returns
+    -------
+    dict
+        ``paths`` (name -> Path), ``timings`` (step -> s), ``table`` (DataFrame), ``text``.
+    """
+    from .params import load_parameter_set
+    from .sweep import dask_client, raise_failures, run_tasks
+    from .system import SystemSettings
+
+    out = Path(out_dir)
+    t_all = time.perf_counter()
+    timings: dict[str, float] = {}
+    paths: dict[str, Path] = {}
+
+    def step(name):
+        timings[name] = time.perf_counter()
+
+    def done(name):
+        timings[name] = time.perf_counter() - timings[name]
+
+    log(f"jointfmu demo -> {out}  ({'quick' if quick else 'full'} size)")
+    log(CAUTION)
+    # 1. check
+    step("check")
+    files = [Path(f) for f in param_files]
+    _check_files(files)
+    psets = [load_parameter_set(f) for f in files]
+    builds_seen = [p.build for p in psets]
+    if len(set(builds_seen)) != len(builds_seen):
+        raise InputError(f"parameter files {', '.join(map(str, files))}: build names must differ "
+                         f"(got {builds_seen})")
+    done("check")
+    log(f"[1/6] check      {len(files)} parameter sets OK ({', '.join(p.set_id for p in psets)})")
+    # 2. build
+    step("build")
+    builds = _build_all(files, out / "fmus")
+    for (_, fmu) in builds:
+        paths[f"fmu:{fmu.stem}"] = fmu
+    done("build")
+    log(f"[2/6] build      {len(builds)} FMUs in {out / 'fmus'}")
+
+    ctx = nullcontext(client) if client is not None else dask_client(scheduler, n_workers)
+    with ctx as c:
+        # 3. report
+        step("report")
+        try:
+            page = _report_step(psets, out / "report", quick, c)
+            paths["report"] = page
+            log(f"[3/6] report     {page}")
+        except ImportError:
+            log("[3/6] report     skipped: this version has no characterization report module")
+        done("report")
+        # 4. sweep
+        step("sweep")
+        settings = SystemSettings()
+        sys_dir = out / "system"
+        tasks = _sweep_tasks(builds, _cases(None), (False, True), settings,
+                             sys_dir / "histories", quick)
+        res = run_tasks(tasks, sys_dir / "results.parquet", client=c, progress=progress,
+                        desc="system runs")
+        raise_failures(res)
+        table = res.table[res.table["key"].isin([t.key for t in tasks])]
+        paths["results"] = sys_dir / "results.parquet"
+        paths["histories"] = sys_dir / "histories"
+        done("sweep")
+        log(f"[4/6] sweep      {len(res.ran)} runs done, {len(res.skipped)} reused "
+            f"-> {paths['results']}")
+    # 5. system page
+    step("page")
+    pp = write_system_page(table, sys_dir, sys_dir / "histories")
+    paths.update({f"system:{k}": v for k, v in pp.items()})
+    done("page")
+    log(f"[5/6] page       {pp['page']}")
+    # 6. linear models
+    step("linearize")
+    by_build = {p.build: p for p in psets}
+    amps = amplitudes_that_matter(table, by_build)
+    lin_lines = []
+    for b, info in amps.items():
+        ps = by_build[b]
+        slug = "".join(ch if ch.isalnum() else "-" for ch in b).lower()
+        d, how = export_linear(ps, info["amplitudes"], out / "linear" / slug, info["case"])
+        paths[f"linear:{b}"] = d
+        lin_lines.append(f"  {b:<12} at {info['case']:<15} amplitudes "
+                         + ", ".join(f"{a:.3g}" for a in info["amplitudes"]) + f" -> {d}")
+    done("linearize")
+    log(f"[6/6] linearize  {len(amps)} equivalent-linear models in {out / 'linear'}")
+    total = time.perf_counter() - t_all
+    text = "\n".join([
+        "",
+        "jointfmu demo: summary",
+        _text_table(table),
+        "",
+        "equivalent-linear models (sine-equivalent modal amplitude sqrt(2) x RMS of the worst "
+        "case, controller off) [m sqrt(kg)]:",
+        *lin_lines,
+        "",
+        "written:",
+        *[f"  {k:<28} {v}" for k, v in paths.items()],
+        "",
+        "timings: " + ", ".join(f"{k} {v:.1f} s" for k, v in timings.items())
+        + f"; total {total:.1f} s",
+        "",
+        "CAUTION: " + CAUTION,
+    ])
+    return {"paths": paths, "timings": timings, "table": table, "text": text,
+            "linear": amps, "total": total}
