@@ -111,6 +111,40 @@ def _cmd_ssv(args: argparse.Namespace) -> int:
     return 0
 
 
+# --- cosim, sweep, demo (system co-simulation and sweeps, see system.py, sweep.py, demo.py) -------
+def _args_cosim(p: argparse.ArgumentParser) -> None:
+    from .demo import add_cosim_args
+    add_cosim_args(p)
+
+
+def _cmd_cosim(args: argparse.Namespace) -> int:
+    """One system run: load case -> tray FMU <-> active damper."""
+    from .demo import cmd_cosim
+    return cmd_cosim(args)
+
+
+def _args_sweep(p: argparse.ArgumentParser) -> None:
+    from .demo import add_sweep_args
+    add_sweep_args(p)
+
+
+def _cmd_sweep(args: argparse.Namespace) -> int:
+    """Builds x load cases x controller on Dask; results table, reruns skip done rows."""
+    from .demo import cmd_sweep
+    return cmd_sweep(args)
+
+
+def _args_demo(p: argparse.ArgumentParser) -> None:
+    from .demo import add_demo_args
+    add_demo_args(p)
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    """The whole day on the shipped example: check, build, report, sweep, linearize."""
+    from .demo import cmd_demo
+    return cmd_demo(args)
+
+
 # --- the table -------------------------------------------------------------------------------------
 #: name -> (declare arguments, run, one-line help)
 _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
@@ -119,6 +153,10 @@ _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
     "build": (_args_build, _cmd_build, "build the FMI 2.0 co-simulation FMU of a parameter file"),
     "info": (_args_info, _cmd_info, "show parameter set, modes, interface and host needs of an FMU"),
     "simulate": (_args_simulate, _cmd_simulate, "run an FMU (or a parameter file) on an input CSV"),
+    "cosim": (_args_cosim, _cmd_cosim, "one system run: load case -> tray FMU <-> active damper"),
+    "sweep": (_args_sweep, _cmd_sweep, "builds x load cases x controller through the system, on Dask"),
+    "demo": (_args_demo, _cmd_demo, "the whole day on the shipped example: check, build, report, "
+                                    "sweep, linearize"),
     "ssv": (_args_ssv, _cmd_ssv, "write the fitted mode values as an SSP 1.0 .ssv file"),
 }
 
