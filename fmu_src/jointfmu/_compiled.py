@@ -25,6 +25,7 @@ The kernel functions' bodies are untouched: the results are bit-identical to the
 kernel (checked here on import with a short run, and by ``tests/test_kernel.py``).  ``fastmath``
 stays off for that reason; ``error_model="numpy"`` only drops the ZeroDivisionError check (the
 kernel divides by nothing that can be zero; a non-finite result is caught by the caller anyway).
+Every top-level function of ``_kernel.py`` is compiled, so a new helper there needs no change here.
 
 Environment
 -----------
@@ -35,6 +36,7 @@ Environment
 """
 from __future__ import annotations
 
+import ast
 import getpass
 import hashlib
 import importlib.util
@@ -51,17 +53,26 @@ __all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "CACHE_FILE", "c
 
 NAME = "numba"
 
-#: Functions compiled, in the order they are bound (all before any is called: Numba resolves
-#: each callee as a global when its caller is first compiled).
-_FUNCTIONS = ("_branch", "_root", "_eval_at", "_lower_depth", "joint_move", "joint_set_virgin",
-              "_onset_correction", "advance")
+#: Options of every compiled function.  ``_nrt=False``: the kernel allocates nothing, and without
+#: Numba's reference-counting runtime the calls between the kernel's functions pass arrays
+#: without atomic reference-count updates (88 -> 39 ns per mode-step measured here);
+#: ``forceinline``: LLVM inlines the helpers into their callers (39 -> 33 ns; same compile time).
+_JIT_OPTIONS = "cache=True, nogil=True, error_model='numpy', _nrt=False, forceinline=True"
 
-_FOOTER = (
-    "\n\n# ---- appended by jointfmu._compiled: the functions above, compiled by Numba ----\n"
-    "import numba as _numba\n"
-    + "".join(f"{name} = _numba.njit(cache=True, nogil=True, error_model='numpy')({name})\n"
-              for name in _FUNCTIONS)
-)
+
+def _functions(source: str) -> list[str]:
+    """Names of the top-level functions of the kernel source, in order of definition."""
+    return [node.name for node in ast.parse(source).body if isinstance(node, ast.FunctionDef)]
+
+
+def _footer(source: str) -> str:
+    # All functions are rebound before any is called: Numba resolves each callee as a global
+    # when its caller is first compiled.
+    return (
+        "\n\n# ---- appended by jointfmu._compiled: the functions above, compiled by Numba ----\n"
+        "import numba as _numba\n"
+        + "".join(f"{name} = _numba.njit({_JIT_OPTIONS})({name})\n" for name in _functions(source))
+    )
 
 
 def cache_dir_candidates() -> list[Path]:
@@ -108,7 +119,8 @@ def _write_once(path: Path, text: bytes) -> None:
 
 
 def _place_source() -> tuple[Path, str]:
-    text = (Path(_K.__file__).read_text(encoding="utf-8") + _FOOTER).encode("utf-8")
+    source = Path(_K.__file__).read_text(encoding="utf-8")
+    text = (source + _footer(source)).encode("utf-8")
     digest = hashlib.sha256(text).hexdigest()[:16]
     name = f"jfmu_kernel_{digest}"
     errors = []
