@@ -96,12 +96,41 @@ class BuildResult:
 
 
 # ---------------------------------------------------------------------------------- names
+#: Modules the FMU starts from; the bundle is their closure under package-relative imports.
+_BUNDLE_ROOTS = ("__init__", "slave")
+
+
+def _relative_imports(path: Path) -> set[str]:
+    """Names of the package modules a module imports relatively (at any depth of its code)."""
+    import ast
+
+    found = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"), str(path))):
+        if isinstance(node, ast.ImportFrom) and node.level == 1:
+            if node.module:
+                found.add(node.module.split(".")[0])
+            else:
+                found.update(a.name for a in node.names)
+    return found
+
+
 def _core_files() -> list[Path]:
-    return sorted(p for p in _PACKAGE_DIR.glob("*.py") if p.is_file())
+    """The package modules an FMU needs: the import closure of :data:`_BUNDLE_ROOTS`, so
+    host-side modules (command line, packaging, studies) stay out of the FMU."""
+    todo, seen = list(_BUNDLE_ROOTS), set()
+    while todo:
+        name = todo.pop()
+        path = _PACKAGE_DIR / f"{name}.py"
+        if name in seen or not path.is_file():
+            continue
+        seen.add(name)
+        todo.extend(_relative_imports(path) - seen)
+    return sorted(_PACKAGE_DIR / f"{n}.py" for n in seen)
 
 
 def _source_hash() -> str:
-    h = hashlib.sha256()
+    """SHA-256 over what decides an FMU's code: bundled modules, entry template, pythonfmu."""
+    h = hashlib.sha256(_ENTRY_TEMPLATE.encode() + b"\0" + _pythonfmu_version().encode())
     for p in _core_files():
         h.update(p.name.encode() + b"\0" + p.read_bytes() + b"\0")
     return h.hexdigest()
