@@ -552,3 +552,19 @@ def test_structure_without_base(tmp_path, psets):
         s.close()
     assert_close_to_reference(ps, t, modal_force_of(ps, point_forces={"psu_foot": F}, M=len(t)),
                               out, "no base")
+
+
+def test_bundle_is_self_contained(fmus):
+    """The bundled core is loaded under its own name, so no bundled module may import
+    ``jointfmu`` absolutely (it would run the host's copy); host-side modules stay out."""
+    import re
+    r = fmus["tray_nominal"]
+    with zipfile.ZipFile(r.path) as z:
+        core = {n.split("/")[-1]: z.read(n).decode() for n in z.namelist()
+                if n.startswith(f"resources/{r.core_package}/") and n.endswith(".py")}
+        req = z.read("resources/requirements.txt").decode()
+    assert {"__init__.py", "slave.py", "params.py", "integrate.py", "variables.py"} <= set(core)
+    assert not {"cli.py", "build.py"} & set(core)
+    for name, text in core.items():
+        assert not re.search(r"^\s*(import|from)\s+jointfmu\b", text, re.M), name
+    assert re.search(r"^numpy", req, re.M) and re.search(r"^scipy", req, re.M)
