@@ -509,40 +509,23 @@ def amplitudes_that_matter(table, params_by_build) -> dict:
 def export_linear(params, amplitudes, out_dir, case: str) -> tuple[Path, str]:
     """Save the equivalent-linear model of one build for the controls team.
 
-    Uses :func:`.linear.equivalent_linear` and ``LinearModel.save`` when that module is present;
-    otherwise saves the state space of :func:`.system.equivalent_linear_structure` (NumPy
-    ``.npz`` plus a JSON description).
+    :func:`.linear.equivalent_linear` at ``amplitudes`` with its default inputs (point forces,
+    base acceleration) and outputs (point x, v, a and the interface force), written by
+    ``LinearModel.save`` (atomic folder replace); the load case it came from is noted as
+    ``origin`` in its metadata.json.
+
+    Returns
+    -------
+    (Path, str)
+        The folder and the definition used.
     """
-    out = Path(out_dir)
-    try:
-        from . import linear as _lin
-    except ImportError:
-        _lin = None
-    if _lin is not None:
-        ins = ["base.acceleration"] + [f"point.{p.label}.force" for p in params.input_points]
-        outs = [f"point.{p.label}.a" for p in params.output_points] + ["base.force"]
-        lm = _lin.equivalent_linear(params, amplitudes, ins, outs)
-        saved = lm.save(out)
-        return Path(saved) if saved is not None else out, "linear.equivalent_linear"
-    import numpy as np
+    from .linear import equivalent_linear
 
-    from .system import equivalent_linear_structure
-
-    lin, how = equivalent_linear_structure(params, amplitudes)
-    out.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=".model.npz.", suffix=".part", dir=out)
-    os.close(fd)
-    with open(tmp, "wb") as f:
-        np.savez(f, A=lin.A, B=lin.B, C=lin.C, D=lin.D)
-    os.replace(tmp, out / "model.npz")
-    meta = {"set_id": params.set_id, "content_hash": params.content_hash(), "definition": how,
-            "load_case": case, "modal_amplitudes": list(map(float, amplitudes)),
-            "inputs": lin.inputs, "outputs": lin.outputs,
-            "state": [f"mode[{i}].q" for i in range(1, params.n_modes + 1)]
-            + [f"mode[{i}].qdot" for i in range(1, params.n_modes + 1)],
-            "caution": CAUTION}
-    _atomic_text(out / "model.json", json.dumps(meta, indent=2) + "\n")
-    return out, how
+    lm = equivalent_linear(params, amplitudes)
+    lm.info["origin"] = (f"jointfmu demo: sine-equivalent modal amplitudes (sqrt(2) x RMS) of "
+                         f"load case {case!r}, controller off")
+    d = Path(lm.save(out_dir))
+    return d, "first-harmonic (linear.equivalent_linear)"
 
 
 # -------------------------------------------------------------------------------- demo

@@ -699,122 +699,25 @@ def write_history(run: SystemRun, path) -> Path:
 
 
 # =================================================================== equivalent-linear model
-def modal_state_space(params, k_eq, c_eq) -> LinearStructure:
-    """Linear modal structure with modal stiffness ``k_eq`` and damping ``c_eq`` per mode.
+def equivalent_linear_structure(params, amplitudes) -> tuple[LinearStructure, str]:
+    """The equivalent-linear structure at modal amplitudes, as a loop component.
 
-    Same mapping of inputs and outputs as the FMU (:mod:`.modal`, mass-normalized modal
-    equations of a base-mounted structure in relative coordinates, common practice):
-    ``q'' + c q' + k q = Phi_in^T F - Gamma a_b``; outputs ``point.<o>.x/.v/.a`` (a absolute),
-    ``base.force = sum r_p F_p - M a_b - Gamma . q''`` and ``mode[i].q``.
-
-    Parameters
-    ----------
-    params : ParameterSet
-    k_eq, c_eq : array_like, shape (N,)
-        Modal stiffness [1/s^2] and damping [1/s].
+    The model of :func:`.linear.equivalent_linear` (first-harmonic frequency, energy-equivalent
+    viscous damping at that frequency) with every point-force and base input and every output,
+    named like the FMU's variables.
 
     Returns
     -------
-    LinearStructure
-        State ``[q (N), q' (N)]``; inputs ``base.acceleration`` then ``point.<p>.force``.
+    (LinearStructure, str)
+        The component and the name of the definition used.
     """
-    from .modal import ModalModel
+    from .linear import available_inputs, available_outputs, equivalent_linear
 
-    m = ModalModel.from_params(params)
-    n = m.n_modes
-    k = np.asarray(k_eq, float).reshape(n)
-    c = np.asarray(c_eq, float).reshape(n)
-    ins = ["base.acceleration"] + [f"point.{lb}.force" for lb in m.input_labels]
-    # modal force per input: column 0 base acceleration, then point forces
-    G = np.zeros((n, len(ins)))
-    G[:, 0] = -m.gamma
-    if m.input_labels:
-        G[:, 1:] = m.phi_in.T
-    A = np.zeros((2 * n, 2 * n))
-    A[:n, n:] = np.eye(n)
-    A[n:, :n] = -np.diag(k)
-    A[n:, n:] = -np.diag(c)
-    B = np.zeros((2 * n, len(ins)))
-    B[n:] = G
-    # q'' = -k q - c q' + G u
-    Cq2 = np.hstack([-np.diag(k), -np.diag(c)])
-    rows_C, rows_D, outs = [], [], []
-    zero_u = np.zeros(len(ins))
-    for j, lb in enumerate(m.output_labels):
-        ph = m.phi_out[j]
-        outs += [f"point.{lb}.x", f"point.{lb}.v", f"point.{lb}.a"]
-        rows_C += [np.concatenate([ph, np.zeros(n)]), np.concatenate([np.zeros(n), ph]),
-                   ph @ Cq2]
-        d_a = ph @ G
-        d_a = d_a.copy()
-        d_a[0] += m.r_out[j]
-        rows_D += [zero_u, zero_u, d_a]
-    outs.append("base.force")
-    rows_C.append(-m.gamma @ Cq2)
-    d_b = -m.gamma @ G
-    d_b[0] += -m.total_mass
-    if m.input_labels:
-        d_b[1:] += m.r_in
-    rows_D.append(d_b)
-    for i in range(n):
-        e = np.zeros(2 * n)
-        e[i] = 1.0
-        outs.append(f"mode[{i + 1}].q")
-        rows_C.append(e)
-        rows_D.append(zero_u)
-    return LinearStructure(A, B, np.array(rows_C), np.array(rows_D), ins, outs)
-
-
-def _secant_energy_equivalent(params, amplitudes) -> tuple[np.ndarray, np.ndarray]:
-    """Secant stiffness and energy-equivalent damping per mode at modal amplitudes ``A``.
-
-    physics.md sec. 5 (secant / energy definition): ``k = Kinf + F_bb(A)/A``; viscous damping
-    ``c = 2 zeta omega0`` plus the joint's loss per cycle ``D_J(A)`` spread as an equivalent
-    viscous term at the secant frequency: ``c_eq = c + D_J / (pi omega A^2)``.  Backbone and
-    dissipation from :mod:`.iwan` (Segalman 2005).  A <= 0 gives the low-amplitude model.
-    """
-    from .iwan import backbone, dissipation_per_cycle
-
-    k_eq, c_eq = [], []
-    for mode, A in zip(params.modes, np.asarray(amplitudes, float).reshape(-1)):
-        j = mode.joint
-        w0 = 2.0 * math.pi * mode.f0
-        kinf = w0 * w0 - j.Kt
-        c = 2.0 * mode.zeta * w0
-        if not (A > 0.0 and math.isfinite(A)):
-            k_eq.append(w0 * w0)
-            c_eq.append(c)
-            continue
-        k = kinf + float(backbone(A, j.Fs, j.Kt, j.chi, j.beta)) / A
-        w = math.sqrt(k)
-        d = float(dissipation_per_cycle(A, j.Fs, j.Kt, j.chi, j.beta))
-        k_eq.append(k)
-        c_eq.append(c + d / (math.pi * w * A * A))
-    return np.array(k_eq), np.array(c_eq)
-
-
-def equivalent_linear_structure(params, amplitudes) -> tuple[LinearStructure, str]:
-    """The equivalent-linear structure at modal amplitudes, and which definition made it.
-
-    Uses the project's equivalent-linear models (:mod:`.linear`) when present, else the secant /
-    energy definition of :func:`_secant_energy_equivalent`.
-    """
-    try:
-        from . import linear as _lin  # noqa: F401
-        lm = _lin.equivalent_linear(params, np.asarray(amplitudes, float),
-                                    inputs=None, outputs=None)
-        return _from_linear_model(lm), "linear.equivalent_linear"
-    except ImportError:
-        pass
-    except Exception:  # noqa: BLE001 - an interface we do not know yet: use our definition
-        pass
-    k, c = _secant_energy_equivalent(params, amplitudes)
-    return modal_state_space(params, k, c), "secant-energy (system.py)"
-
-
-def _from_linear_model(lm) -> LinearStructure:
-    A, B, C, D = (getattr(lm, x) for x in ("A", "B", "C", "D"))
-    return LinearStructure(A, B, C, D, list(lm.inputs), list(lm.outputs))
+    ins = [n for n in available_inputs(params) if not n.startswith("mode[")]
+    lm = equivalent_linear(params, np.asarray(amplitudes, float), inputs=ins,
+                           outputs=list(available_outputs(params)))
+    return (LinearStructure(lm.A, lm.B, lm.C, lm.D, list(lm.input_names), list(lm.output_names)),
+            "first-harmonic (linear.equivalent_linear)")
 
 
 # ============================================================================= one task
