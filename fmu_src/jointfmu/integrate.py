@@ -296,7 +296,7 @@ class ModalSimulator:
         if bad.any():
             j = int(np.argmax(bad))
             raise InputError(
-                f"{name}[{labels[j]}] = {a[j]!r}: must be finite with |value| <= {MAX_INPUT:g}"
+                f"{name}[{labels[j]}] = {float(a[j])!r}: must be finite with |value| <= {MAX_INPUT:g}"
             )
         return a
 
