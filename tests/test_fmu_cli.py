@@ -181,7 +181,7 @@ def test_ssv_valid_against_ssp_schema_and_exact(tmp_path, capsys):
 
     worn = EXAMPLES / "tray_worn.toml"
     out = tmp_path / "worn.ssv"
-    assert main(["ssv", str(worn), "-o", str(out)]) == 0
+    assert main(["export-ssv", str(worn), "-o", str(out)]) == 0
     assert str(out) in capsys.readouterr().out
     pset = read_ssv(str(out), validate=True)
     ps = load_parameter_set(worn)
@@ -196,5 +196,5 @@ def test_ssv_valid_against_ssp_schema_and_exact(tmp_path, capsys):
 
 
 def test_ssv_bad_suffix(tmp_path, capsys):
-    assert main(["ssv", str(NOMINAL), "-o", str(tmp_path / "x.xml")]) == 1
+    assert main(["export-ssv", str(NOMINAL), "-o", str(tmp_path / "x.xml")]) == 1
     assert "must end in '.ssv'" in capsys.readouterr().err

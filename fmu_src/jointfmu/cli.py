@@ -97,13 +97,13 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     return 0
 
 
-def _args_ssv(p: argparse.ArgumentParser) -> None:
+def _args_export_ssv(p: argparse.ArgumentParser) -> None:
     p.add_argument("params", metavar="PARAMS", help="parameter file (jointfmu-params/1 TOML)")
     p.add_argument("-o", "--output", metavar="SSV",
                    help="file to write (default build/<name>_<build-slug>.ssv)")
 
 
-def _cmd_ssv(args: argparse.Namespace) -> int:
+def _cmd_export_ssv(args: argparse.Namespace) -> int:
     """Write the fitted mode values as an SSP 1.0 parameter-value file."""
     from .build import write_ssv
 
@@ -157,7 +157,8 @@ _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
     "sweep": (_args_sweep, _cmd_sweep, "builds x load cases x controller through the system, on Dask"),
     "demo": (_args_demo, _cmd_demo, "the whole day on the shipped example: check, build, report, "
                                     "sweep, linearize"),
-    "ssv": (_args_ssv, _cmd_ssv, "write the fitted mode values as an SSP 1.0 .ssv file"),
+    "export-ssv": (_args_export_ssv, _cmd_export_ssv,
+                   "write the fitted mode values as an SSP 1.0 parameter-values file (.ssv)"),
 }
 
 
