@@ -61,6 +61,7 @@ __all__ = [
     "parameter_values_ssv",
     "write_ssv",
     "read_parameter_values",
+    "with_parameter_values",
     "HOST_REQUIREMENTS",
     "HOST_OPTIONAL",
 ]
@@ -552,6 +553,9 @@ def format_fmu_info(info: Mapping) -> str:
     ]
     if p.description:
         lines.append(f"description:       {p.description}")
+    if info.get("values_from"):
+        lines.append(f"mode values:       from {info['values_from']} (applied as start values "
+                     "in place of the FMU's own)")
     lines.append(f"modes ({p.n_modes}):")
     lines.append(f"  {'#':>2} {'label':<12} {'f0 [Hz]':>12} {'zeta':>10} {'Fs [N/kg^0.5]':>14} "
                  f"{'Kt [1/s2]':>12} {'chi':>8} {'beta':>8}")
@@ -1031,3 +1035,40 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
     if problems:
         raise ParameterError(problems)
     return values
+
+
+def with_parameter_values(params: ParameterSet, values: Mapping[str, float],
+                          source: str = "FMU parameter") -> ParameterSet:
+    """The parameter set an FMU of ``params`` runs with these start values.
+
+    Parameters
+    ----------
+    params : ParameterSet
+        The FMU's own (bundled) parameter set.
+    values : mapping str -> float
+        FMU parameter name -> value, e.g. from :func:`read_parameter_values`.
+        ``steps_per_period`` is a solver setting, not a parameter-set value, and is left out.
+    source : str
+        Names the origin of the values in error messages.
+
+    Returns
+    -------
+    ParameterSet
+
+    Raises
+    ------
+    ParameterError
+        An unknown name or an out-of-range value (messages of ``jointfmu check``).
+    """
+    overrides: dict[tuple[int, str], float] = {}
+    problems: list[Problem] = []
+    for name, x in values.items():
+        m = _MODE_PARAM_RE.match(name)
+        if m:
+            overrides[(int(m.group(1)), m.group(2) or m.group(3))] = x
+        elif name != "steps_per_period":
+            problems.append(Problem(source, name, x, "not a jointfmu FMU parameter; allowed: "
+                                    + _allowed_parameters_text(params.n_modes)))
+    if problems:
+        raise ParameterError(problems)
+    return params.with_mode_values(overrides, source=source)
