@@ -266,3 +266,16 @@ def test_exported_bytes_are_what_the_reader_reads(tmp_path):
     out = tmp_path / "w.ssv"
     assert main(["export-ssv", str(WORN), "-o", str(out)]) == 0
     assert out.read_bytes() == parameter_values_ssv(load_parameter_set(WORN))
+
+
+def test_info_shows_the_modes_with_the_ssv_values(ssv_fmus, worn_ssv, tmp_path, capsys):
+    assert main(["info", str(ssv_fmus["tray_nominal"]), "--parameters", str(worn_ssv)]) == 0
+    out = capsys.readouterr().out
+    nom = load_parameter_set(NOMINAL)
+    assert nom.set_id in out and f"mode values:       from {worn_ssv}" in out
+    rows = [ln.split() for ln in out.splitlines() if ln.strip().startswith(("1 tray", "4 tray"))]
+    worn = load_parameter_set(WORN)
+    assert [float(r[2]) for r in rows] == [worn.modes[0].f0, worn.modes[3].f0]   # 65.6, 406.2
+    bad = _edited_ssv(worn_ssv, tmp_path / "bad.ssv", "mode[2].joint.chi", value="0.3")
+    assert main(["info", str(ssv_fmus["tray_nominal"]), "--parameters", str(bad)]) == 1
+    assert "mode[2].joint.chi = 0.3: must satisfy -1 < chi <= 0" in capsys.readouterr().err

@@ -59,13 +59,20 @@ def _cmd_build(args: argparse.Namespace) -> int:
 
 def _args_info(p: argparse.ArgumentParser) -> None:
     p.add_argument("fmu", metavar="FMU", help="an FMU built by jointfmu")
+    p.add_argument("--parameters", metavar="SSV",
+                   help="show the modes with the values of this SSP 1.0 parameter-values file")
 
 
 def _cmd_info(args: argparse.Namespace) -> int:
     """Print identity, modes, interface and host requirements of an FMU."""
-    from .build import format_fmu_info, read_fmu_info
+    from .build import format_fmu_info, read_fmu_info, read_parameter_values, with_parameter_values
 
-    print(format_fmu_info(read_fmu_info(args.fmu)))
+    info = read_fmu_info(args.fmu)
+    if args.parameters:
+        values = read_parameter_values(args.parameters, info["params"])
+        info = {**info, "values_from": args.parameters,
+                "params": with_parameter_values(info["params"], values, args.parameters)}
+    print(format_fmu_info(info))
     return 0
 
 
