@@ -257,3 +257,46 @@ def test_bad_inputs_name_the_problem():
         C.hilbert_ringdown(t, np.sin(60 * t), method="fast")
     with pytest.raises(InputError, match="impulses: must be 4 finite numbers"):
         C.CoreRunner()(NOMINAL, [1.0, 2.0], 1e-4, 10)
+
+
+# --- the report -------------------------------------------------------------------------------
+def test_report_is_complete_and_atomic(tmp_path, monkeypatch):
+    """One build with the core runner: the page names the set, its hash, the version and the
+    caution, and links PNGs that exist; a failing second run leaves the first report untouched
+    and no temporary folder behind."""
+    from jointfmu import __version__
+    from jointfmu import report as R
+
+    out = tmp_path / "rep"
+    index = R.write_report([EXAMPLES / "tray_undertorqued.toml"], out, runner="core")
+    text = index.read_text(encoding="utf-8")
+    ps = load_parameter_set(EXAMPLES / "tray_undertorqued.toml")
+    for needle in (ps.set_id, ps.content_hash(), f"jointfmu {__version__}",
+                   "A fitted model is no substitute for qualification testing; defer to the "
+                   "applicable codes, standards and licensed engineering practice."):
+        assert needle in text
+    import re
+
+    pngs = re.findall(r"src='([^']+\.png)'", text)
+    assert len(pngs) == 5
+    for name in pngs:
+        assert (out / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+    def boom(*a, **k):
+        raise RuntimeError("plot failed")
+
+    monkeypatch.setattr(R, "_fig_damping", boom)
+    with pytest.raises(RuntimeError, match="plot failed"):
+        R.write_report([ps], out, runner="core")
+    assert index.read_text(encoding="utf-8") == text
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["rep"]
+
+
+def test_report_bad_input():
+    from jointfmu import report as R
+    from jointfmu.errors import ParameterError
+
+    with pytest.raises(InputError, match="at least one parameter set"):
+        R.write_report([], "x")
+    with pytest.raises(ParameterError, match="cannot be read"):
+        R.write_report(["/nonexistent/build.toml"], "x")

@@ -315,11 +315,14 @@ def hysteresis_loop(mode, A: float, n: int = 400, cycles: int = 2):
     return u[keep], F[keep]
 
 
-def simulated_dissipation(mode, amplitudes, n: int = 400) -> np.ndarray:
+def simulated_dissipation(mode, amplitudes, n: int = 64) -> np.ndarray:
     """Dissipation per cycle measured on the exact joint element (:class:`~.iwan.IwanJoint`).
 
-    For each amplitude, load from virgin to A, then one full cycle A -> -A -> A; the dissipation
-    is the element's dissipated energy over that cycle [J].  Shape like ``amplitudes``.
+    For each amplitude, load from virgin to A, then one full cycle A -> -A -> A in ``n`` straight
+    pieces; the dissipation is the element's dissipated energy over that cycle [J].  The joint is
+    rate-independent and its memory keeps only reversal points, so any path with the same
+    reversals (here exactly +-A) dissipates the same: ``n`` only needs to be even.  Shape like
+    ``amplitudes``.
     """
     from .iwan import IwanJoint
 
@@ -510,7 +513,7 @@ def ring_down(params, runner=None, *, start: float = 1.0, end: float = 0.03,
 
     Each mode gets the impulse of :func:`impulse_for_amplitude` for ``start * phimax``; the record
     lasts the longest predicted decay time (:func:`predicted_decay_time`) plus 6 periods, at
-    ``samples_per_period`` samples per period of the highest mode.
+    ``samples_per_period`` samples per period of the highest excited mode.
 
     Parameters
     ----------
@@ -520,9 +523,9 @@ def ring_down(params, runner=None, *, start: float = 1.0, end: float = 0.03,
     start, end : float
         Start and end amplitude relative to phimax (``0 < end < start``).
     samples_per_period : float
-        Samples per period of the highest mode (>= 16).
+        Samples per period of the highest excited mode (>= 16).
     max_periods : float
-        Cap on the record length, in periods of the lowest mode.
+        Cap on the record length, in periods of the lowest excited mode.
     modes : sequence of int, optional
         0-based modes to excite (default all; the others stay at rest).
     """
@@ -541,9 +544,9 @@ def ring_down(params, runner=None, *, start: float = 1.0, end: float = 0.03,
         pm = joint_constants(*_joint(m)).phimax
         imp[i] = impulse_for_amplitude(m, start * pm)
         t_end = max(t_end, predicted_decay_time(m, start * pm, end * pm) + 6.0 / m.f_macro)
-    f_lo = min(m.f0 for m in params.modes)
-    t_end = min(t_end, max_periods / f_lo)
-    dt = 1.0 / (samples_per_period * max(m.f0 for m in params.modes))
+    excited = [params.modes[i] for i in sel]
+    t_end = min(t_end, max_periods / min(m.f0 for m in excited))
+    dt = 1.0 / (samples_per_period * max(m.f0 for m in excited))
     return run(params, imp, dt, int(math.ceil(t_end / dt)))
 
 

@@ -340,7 +340,7 @@ class LinearModel:
         if target.exists() and not target.is_dir():
             raise InputError(f"output {str(target)!r} exists and is not a folder")
         tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=parent))
-        old = None
+        os.chmod(tmp, 0o755)  # mkdtemp makes it private; the model is meant to be shared
         try:
             meta = self.metadata()
             text = json.dumps(meta, indent=2) + "\n"
@@ -359,22 +359,11 @@ class LinearModel:
                 for r, vals in zip(rows[name], getattr(self, name)):
                     w.writerow([r] + [repr(float(v)) for v in vals])
                 (tmp / f"{name}.csv").write_text(buf.getvalue(), encoding="utf-8")
-            if target.exists():
-                old = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=parent))
-                old.rmdir()
-                os.replace(target, old)
-            os.replace(tmp, target)
+            _swap_into_place(tmp, target)
             tmp = None
-        except BaseException:
-            if old is not None and not target.exists():
-                os.replace(old, target)
-                old = None
-            raise
         finally:
             if tmp is not None:
                 shutil.rmtree(tmp, ignore_errors=True)
-            if old is not None:
-                shutil.rmtree(old, ignore_errors=True)
         return target
 
     @classmethod
@@ -401,6 +390,28 @@ class LinearModel:
                    modal_amplitude=amp, frequency=np.array([m["frequency_hz"] for m in modes]),
                    zeta=np.array([m["zeta"] for m in modes]), phimax=pm,
                    set_id=meta["parameter_set"], content_hash=meta["content_hash"], info=info)
+
+
+def _swap_into_place(tmp: Path, target: Path) -> None:
+    """Replace folder ``target`` by the complete folder ``tmp`` (same parent).
+
+    The old folder is first renamed aside, then ``tmp`` renamed into place, then the old one
+    removed; if the second rename fails the old folder is put back.  A reader sees either the old
+    or the new folder, never a half-written one (two renames; POSIX has no atomic folder swap).
+    """
+    old = None
+    if target.exists():
+        old = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=target.parent))
+        old.rmdir()
+        os.replace(target, old)
+    try:
+        os.replace(tmp, target)
+    except BaseException:
+        if old is not None:
+            os.replace(old, target)
+        raise
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
 
 
 def _ro(a):

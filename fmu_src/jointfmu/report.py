@@ -1,0 +1,564 @@
+"""Per-build characterization reports: an HTML page with PNG plots and summary tables.
+
+:func:`write_report` takes one or more parameter sets (builds of the same structure, usually),
+rings every mode down through the FMU (or another runner, see :mod:`.characterize`), identifies
+damping and frequency vs amplitude with the Hilbert transform, and writes beside them the
+closed-form curves, the dissipation per cycle, hysteresis loops and the ring-down of the linear
+low-amplitude model.  Builds are overlaid on the same axes.  Matplotlib is imported only here and
+only when a report is written (object-oriented API with the Agg canvas: no global pyplot state).
+
+A fitted model is no substitute for qualification testing; defer to the applicable codes,
+standards and licensed engineering practice.
+"""
+from __future__ import annotations
+
+import html
+import math
+import os
+import shutil
+import tempfile
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+
+from . import characterize as C
+from .errors import InputError
+from .iwan import joint_constants
+from .linear import CAUTION, _swap_into_place, equivalent_linear
+
+__all__ = ["write_report", "BuildSummary", "summarize_build", "DEFAULT_REPORT_DIR"]
+
+#: Where ``jointfmu report`` writes by default (relative to the current folder).
+DEFAULT_REPORT_DIR = Path("build") / "report"
+
+_G = 9.80665  # m/s^2, standard gravity (ISO 80000-3), for accelerations shown in g
+_TWO_PI = 2.0 * math.pi
+_RATIOS = (0.1, 0.5, 1.0)  # amplitudes, relative to phimax, shown in the tables
+
+
+@dataclass
+class BuildSummary:
+    """Everything the report shows of one build (also usable on its own).
+
+    Attributes
+    ----------
+    params : ParameterSet
+    curves : list of ModeCurves
+        Closed-form curves per mode, 1e-3..3 phimax.
+    ringdown : RingDown
+        The simulated free decay of all modes (struck together).
+    ringdown_1 : RingDown
+        Mode 1 alone struck (for the time-history plot at an output point).
+    estimates : list of HilbertEstimate
+        Identified damping/frequency per mode.
+    ref_points : list of (str, float)
+        Per mode, the output point where it moves most and its |shape| [1/sqrt(kg)].
+    """
+
+    params: object
+    curves: list
+    ringdown: C.RingDown
+    ringdown_1: C.RingDown
+    estimates: list
+    ref_points: list
+
+
+def _load(p):
+    from .params import ParameterSet, load_parameter_set
+
+    if isinstance(p, ParameterSet):
+        return p
+    if isinstance(p, (str, os.PathLike)):
+        return load_parameter_set(p)
+    raise InputError(f"{p!r}: give a ParameterSet or the path of a parameter file")
+
+
+def _ref_points(params):
+    out = []
+    for i in range(params.n_modes):
+        best = max(params.output_points, key=lambda p: abs(p.shape[i]), default=None)
+        out.append((best.label, abs(best.shape[i])) if best is not None and best.shape[i] else (None, 1.0))
+    return out
+
+
+def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.03) -> BuildSummary:
+    """Curves, ring-down and Hilbert estimates of one build (the data of one report section).
+
+    Parameters
+    ----------
+    params : ParameterSet or path
+    runner : Runner, "fmu", "core" or None
+        Who simulates the ring-down (default the FMU, :class:`~.characterize.FmuRunner`).
+    start, end : float
+        Ring-down from about ``start * phimax`` to ``end * phimax`` (every mode at once).
+    """
+    ps = _load(params)
+    curves = C.amplitude_curves(ps, lo=1e-3, hi=3.0, n=160)
+    runner = C.get_runner(runner)
+    rd = C.ring_down(ps, runner, start=start, end=end)
+    est = [C.identify_ringdown(rd, i) for i in range(ps.n_modes)]
+    rd1 = C.ring_down(ps, runner, start=start, end=0.1, modes=[0], max_periods=60)
+    return BuildSummary(ps, curves, rd, rd1, est, _ref_points(ps))
+
+
+# ------------------------------------------------------------------------------------------------
+# figures (matplotlib, Agg)
+# ------------------------------------------------------------------------------------------------
+def _figure(nrows, ncols, w=11.0, h=7.5):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(w, h), dpi=100, layout="constrained")
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(nrows, ncols, squeeze=False)
+    return fig, axes
+
+
+def _save(fig, path: Path) -> str:
+    fig.savefig(path, format="png")
+    return path.name
+
+
+def _grid(n):
+    return (1, 1) if n == 1 else (1, 2) if n == 2 else (2, 2) if n <= 4 else (math.ceil(n / 3), 3)
+
+
+def _axis_spec(summaries, i):
+    """x-axis for mode i: physical displacement at a common reference point when every build has
+    it, else the modal amplitude."""
+    lab = summaries[0].ref_points[i][0] if i < len(summaries[0].ref_points) else None
+    ok = lab is not None and all(
+        i < s.params.n_modes and any(p.label == lab and p.shape[i] for p in s.params.output_points)
+        for s in summaries)
+    if ok:
+        def scale(s):
+            return 1e6 * abs(next(p for p in s.params.output_points if p.label == lab).shape[i])
+        return scale, f"displacement amplitude at '{lab}' [µm]"
+    return (lambda s: 1e6), "modal amplitude [µm·√kg]"
+
+
+def _modes_figure(summaries, draw, ylabel, fname, out: Path, *, logy=False, legend_extra=()):
+    n = max(s.params.n_modes for s in summaries)
+    r, c = _grid(n)
+    fig, axes = _figure(r, c)
+    for i in range(r * c):
+        ax = axes.flat[i]
+        if i >= n:
+            ax.set_visible(False)
+            continue
+        scale, xlabel = _axis_spec(summaries, i)
+        for k, s in enumerate(summaries):
+            if i < s.params.n_modes:
+                draw(ax, s, i, scale(s), f"C{k}")
+        ax.set_xscale("log")
+        if logy:
+            ax.set_yscale("log")
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        m = summaries[0].params.modes[i] if i < summaries[0].params.n_modes else None
+        ax.set_title(f"mode {i + 1}" + (f" ({m.label})" if m else ""), fontsize=10)
+        ax.grid(True, which="major", alpha=0.3)
+    _legend(fig, axes.flat[0], summaries, legend_extra)
+    return _save(fig, out / fname)
+
+
+def _legend(fig, ax, summaries, extra):
+    from matplotlib.lines import Line2D
+
+    handles = [Line2D([], [], color=f"C{k}", lw=2, label=s.params.set_id)
+               for k, s in enumerate(summaries)]
+    handles += [Line2D([], [], color="0.3", **kw) for kw in extra]
+    fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 4), fontsize=9,
+               frameon=False)
+
+
+def _marker_points(cv, est, n=28):
+    """Hilbert estimates at log-spaced amplitudes over the range the record covers well (from
+    0.02 phimax up: below, the mode has rung far down and numerical noise dominates)."""
+    lo = max(est.amplitude.min(), 0.02 * cv.phimax)
+    hi = est.amplitude.max()
+    if not hi > lo:
+        return np.array([]), np.array([]), np.array([])
+    A = np.geomspace(lo, hi, n)
+    z, f = est.at(A)
+    return A, z, f
+
+
+def _onset(ax, x, color):
+    ax.axvline(x, color=color, ls=":", lw=1)
+
+
+def _fig_damping(summaries, out):
+    def draw(ax, s, i, sc, col):
+        cv, est = s.curves[i], s.estimates[i]
+        x = cv.amplitude * sc
+        ax.plot(x, 100 * cv.zeta_rd, color=col, lw=1.8)
+        ax.plot(x, 100 * cv.zeta_eq, color=col, lw=1.2, ls="--")
+        A, z, _ = _marker_points(cv, est)
+        ax.plot(A * sc, 100 * z, "o", ms=3.5, mfc="none", color=col)
+        ax.set_ylim(bottom=0)
+        _onset(ax, cv.phimax * sc, col)
+
+    extra = ({"lw": 1.8, "label": "ring-down damping ζ_rd (closed form)"},
+             {"lw": 1.2, "ls": "--", "label": "equivalent (harmonic) damping ζ_eq"},
+             {"ls": "none", "marker": "o", "mfc": "none", "label": "Hilbert estimate from ring-down"},
+             {"ls": ":", "label": "onset of macro-slip"})
+    return _modes_figure(summaries, draw, "damping ratio [%]", "damping.png", out,
+                         legend_extra=extra)
+
+
+def _fig_frequency(summaries, out):
+    def draw(ax, s, i, sc, col):
+        cv, est = s.curves[i], s.estimates[i]
+        ax.plot(cv.amplitude * sc, cv.freq_1, color=col, lw=1.8)
+        A, _, f = _marker_points(cv, est)
+        ax.plot(A * sc, f, "o", ms=3.5, mfc="none", color=col)
+        ax.axhline(cv.f_macro, color=col, lw=0.8, ls="-.")
+        _onset(ax, cv.phimax * sc, col)
+
+    extra = ({"lw": 1.8, "label": "first-harmonic frequency (closed form)"},
+             {"ls": "none", "marker": "o", "mfc": "none", "label": "Hilbert estimate from ring-down"},
+             {"ls": "-.", "lw": 0.8, "label": "macro-slip frequency √Kinf/2π"},
+             {"ls": ":", "label": "onset of macro-slip"})
+    return _modes_figure(summaries, draw, "frequency [Hz]", "frequency.png", out, legend_extra=extra)
+
+
+def _fig_dissipation(summaries, out):
+    def draw(ax, s, i, sc, col):
+        cv = s.curves[i]
+        m = s.params.modes[i]
+        ax.plot(cv.amplitude * sc, cv.dissipation, color=col, lw=1.8)
+        A = cv.phimax * np.geomspace(2e-3, 2.5, 9)
+        ax.plot(A * sc, C.simulated_dissipation(m, A), "s", ms=4, mfc="none", color=col)
+        # micro-slip slope measured on the exact element over a decade, against 3 + chi
+        a2 = cv.phimax * np.array([0.005, 0.05])
+        d2 = C.simulated_dissipation(m, a2)
+        slope = math.log(d2[1] / d2[0]) / math.log(10.0)
+        k = int(col[1:])
+        ax.text(0.98, 0.04 + 0.075 * k, f"{s.params.build}: measured slope {slope:.3f}, 3+χ = {3 + m.joint.chi:.2f}",
+                transform=ax.transAxes, ha="right", va="bottom", fontsize=7.5, color=col,
+                bbox={"fc": "white", "ec": "none", "alpha": 0.85, "pad": 0.5})
+        _onset(ax, cv.phimax * sc, col)
+
+    extra = ({"lw": 1.8, "label": "closed form (Segalman 2005)"},
+             {"ls": "none", "marker": "s", "mfc": "none", "label": "exact joint element, one cycle"},
+             {"ls": ":", "label": "onset of macro-slip"})
+    return _modes_figure(summaries, draw, "joint dissipation per cycle [J]", "dissipation.png", out,
+                         logy=True, legend_extra=extra)
+
+
+def _fig_loops(s: BuildSummary, k: int, out: Path):
+    n = s.params.n_modes
+    r, c = _grid(n)
+    fig, axes = _figure(r, c, h=7.0)
+    levels = (0.3, 0.6, 1.0, 1.5)
+    for i in range(r * c):
+        ax = axes.flat[i]
+        if i >= n:
+            ax.set_visible(False)
+            continue
+        m = s.params.modes[i]
+        pm = s.curves[i].phimax
+        for j, lev in enumerate(levels):
+            u, F = C.hysteresis_loop(m, lev * pm, n=300, cycles=1)
+            ax.plot(1e6 * u, F, color=f"C{j}", lw=1.3, label=f"A = {lev:g} φmax")
+        ax.axhline(m.joint.Fs, color="0.4", ls=":", lw=0.8)
+        ax.axhline(-m.joint.Fs, color="0.4", ls=":", lw=0.8)
+        ax.set_xlabel("modal displacement q [µm·√kg]")
+        ax.set_ylabel("joint force [N/√kg]")
+        ax.set_title(f"mode {i + 1} ({m.label}), φmax = {1e6 * pm:.3g} µm·√kg, ±Fs dotted",
+                     fontsize=9)
+        ax.grid(True, alpha=0.3)
+        ax.legend(fontsize=7, loc="upper left")
+    fig.suptitle(f"Hysteresis loops of the joints, {s.params.set_id} (exact joint element)",
+                 fontsize=11)
+    return _save(fig, out / f"loops_{k + 1}.png")
+
+
+def _linear_ringdown(ps, rd: C.RingDown, point: str) -> np.ndarray:
+    """Acceleration at ``point`` of the low-amplitude linear model (f0, zeta) after the same pulse
+    as ``rd``, exact for held inputs (zero-order-hold discretization by scipy.signal)."""
+    from scipy import signal
+
+    lm = equivalent_linear(ps, np.zeros(ps.n_modes),
+                           inputs=[f"mode[{i + 1}].force" for i in range(ps.n_modes)],
+                           outputs=[f"point.{point}.a"])
+    dsys = signal.StateSpace(lm.A, lm.B, lm.C, lm.D).to_discrete(rd.dt, method="zoh")
+    pulse = rd.impulses / rd.dt
+    # x_k: state at t_k; the pulse is held over [0, dt).  Sample k >= 1 is read after the step and
+    # before the input changes (as the runners do), so sample 1 still sees the pulse through D.
+    x = dsys.B @ pulse
+    y = np.zeros(rd.t.size)
+    y[1] = (lm.C @ x + lm.D @ pulse)[0]
+    for k in range(2, rd.t.size):
+        x = dsys.A @ x
+        y[k] = (lm.C @ x)[0]
+    return y
+
+
+def _fig_ringdown(summaries, out):
+    n = len(summaries)
+    fig, axes = _figure(n, 2, h=2.5 * n + 0.8)
+    for k, s in enumerate(summaries):
+        ps, rd = s.params, s.ringdown_1
+        lab = s.ref_points[0][0]
+        ax, az = axes[k]
+        if lab is None:
+            ax.set_visible(False)
+            az.set_visible(False)
+            continue
+        j = rd.output_labels.index(lab)
+        t = rd.t[2:]  # samples 0 and 1 are taken while the pulse acts
+        a_nl = rd.point_a[2:, j] / _G
+        a_lin = _linear_ringdown(ps, rd, lab)[2:] / _G
+        m = ps.modes[0]
+        ax.plot(t, a_lin, color="0.6", lw=0.5)
+        ax.plot(t, a_nl, color=f"C{k}", lw=0.5)
+        ax.set_xlabel("time after the pulse [s]")
+        ax.set_ylabel(f"acceleration at '{lab}' [g]")
+        ax.set_title(f"{ps.set_id}: mode 1 ({m.label}) struck to ≈2 φmax", fontsize=9)
+        ax.grid(True, alpha=0.3)
+        T = 1.0 / m.f0
+        z0 = 12 * T
+        zoom = (t >= z0) & (t <= z0 + 6 * T)
+        az.plot(1e3 * t[zoom], a_lin[zoom], color="0.6", lw=1.2)
+        az.plot(1e3 * t[zoom], a_nl[zoom], color=f"C{k}", lw=1.2)
+        az.set_xlabel("time after the pulse [ms]")
+        az.set_ylabel(f"acceleration at '{lab}' [g]")
+        az.set_title("periods 12 to 18: the Iwan model has decayed more and drifted in phase",
+                     fontsize=9)
+        az.grid(True, alpha=0.3)
+    from matplotlib.lines import Line2D
+
+    handles = [Line2D([], [], color="0.6", lw=1.2, label="linear model, low-amplitude f0 and ζ")]
+    handles += [Line2D([], [], color=f"C{k}", lw=1.2,
+                       label=f"Iwan model {s.params.set_id} ({s.ringdown_1.source})")
+                for k, s in enumerate(summaries)]
+    fig.legend(handles=handles, loc="outside lower center", ncols=2, fontsize=9, frameon=False)
+    return _save(fig, out / "ringdown.png")
+
+
+# ------------------------------------------------------------------------------------------------
+# tables and page
+# ------------------------------------------------------------------------------------------------
+def _e(x) -> str:
+    return html.escape(str(x))
+
+
+def _num(x, digits=3) -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "–"
+    return f"{x:.{digits}g}"
+
+
+def _length(x_m: float) -> str:
+    """A displacement in µm, or in mm from 1 mm up."""
+    return f"{_num(1e3 * x_m)} mm" if x_m >= 1e-3 else f"{_num(1e6 * x_m)} µm"
+
+
+def _table(head, rows, cls="") -> str:
+    h = "".join(f"<th>{c}</th>" for c in head)
+    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in r) + "</tr>" for r in rows)
+    return f'<table class="{cls}"><thead><tr>{h}</tr></thead><tbody>{body}</tbody></table>'
+
+
+def _params_table(s: BuildSummary) -> str:
+    rows = []
+    for i, m in enumerate(s.params.modes):
+        j = m.joint
+        cv = s.curves[i]
+        rows.append([f"{i + 1} {_e(m.label)}", _num(m.f0, 4), _num(100 * m.zeta), _num(j.Fs),
+                     _num(j.Kt), _num(j.chi), _num(j.beta), _num(1e6 * cv.phimax),
+                     _num(cv.f_macro, 4)])
+    return _table(["mode", "f0 [Hz]", "ζ [%]", "Fs [N/√kg]", "Kt [1/s²]", "χ", "β",
+                   "φmax [µm·√kg]", "f macro-slip [Hz]"], rows)
+
+
+def _onset_table(s: BuildSummary) -> str:
+    pts = s.params.output_points
+    rows = []
+    for i, m in enumerate(s.params.modes):
+        cv = s.curves[i]
+        w1 = _TWO_PI * float(C.mode_curves(m, np.array([cv.phimax])).freq_1[0])
+        cells = [f"{i + 1} {_e(m.label)}"]
+        for p in pts:
+            phi = abs(p.shape[i])
+            cells.append(f"{_length(phi * cv.phimax)} / {_num(w1**2 * phi * cv.phimax / _G)} g"
+                         if phi else "–")
+        rows.append(cells)
+    head = ["mode"] + [f"'{_e(p.label)}': x / a" for p in pts]
+    return _table(head, rows)
+
+
+def _amplitude_table(s: BuildSummary) -> str:
+    rows = []
+    for i, m in enumerate(s.params.modes):
+        cv = s.curves[i]
+        A = cv.phimax * np.array(_RATIOS)
+        at = C.mode_curves(m, A)
+        z_h, _ = s.estimates[i].at(A)
+        drop = 100 * (1 - at.freq_1[-1] / m.f0)
+        rows.append([f"{i + 1} {_e(m.label)}"]
+                    + [_num(100 * v) for v in at.zeta_rd] + [_num(100 * v) for v in at.zeta_eq]
+                    + [_num(100 * v) for v in z_h] + [_num(drop)])
+    r = [f"{v:g}" for v in _RATIOS]
+    head = (["mode"] + [f"ζ_rd [%] at {x} φmax" for x in r] + [f"ζ_eq [%] at {x} φmax" for x in r]
+            + [f"ζ Hilbert [%] at {x} φmax" for x in r] + ["frequency drop at φmax [%]"])
+    return _table(head, rows, "wide")
+
+
+def _compare_table(summaries) -> str:
+    rows = []
+    n = max(s.params.n_modes for s in summaries)
+    for i in range(n):
+        for k, s in enumerate(summaries):
+            if i >= s.params.n_modes:
+                continue
+            m = s.params.modes[i]
+            cv = s.curves[i]
+            lab, phi = s.ref_points[i]
+            at = C.mode_curves(m, np.array([0.5 * cv.phimax, cv.phimax]))
+            w1 = _TWO_PI * at.freq_1[1]
+            onset = (f"{_num(w1**2 * phi * cv.phimax / _G)} g at '{_e(lab)}'" if lab
+                     else f"{_num(1e6 * cv.phimax)} µm·√kg (modal)")
+            rows.append([f"{i + 1} {_e(m.label)}" if k == 0 else "",
+                         f'<span class="sw" style="background:{_color(k)}"></span>{_e(s.params.set_id)}',
+                         _num(m.f0, 4), _num(100 * at.zeta_rd[0]), onset,
+                         _num(100 * (1 - at.freq_1[1] / m.f0))])
+    return _table(["mode", "build", "f0 [Hz]", "ζ_rd at 0.5 φmax [%]",
+                   "macro-slip onset (acceleration amplitude)", "frequency drop at onset [%]"], rows)
+
+
+def _color(k):
+    from matplotlib import colormaps
+    from matplotlib.colors import to_hex
+
+    return to_hex(colormaps["tab10"](k % 10))
+
+
+_CSS = """
+body{font-family:system-ui,-apple-system,Segoe UI,Helvetica,Arial,sans-serif;max-width:1180px;
+margin:2em auto;padding:0 1em;color:#222;line-height:1.45}
+h1{font-size:1.6em;margin-bottom:.2em}h2{margin-top:1.8em;border-bottom:1px solid #ccc}
+.caution{border:2px solid #b45309;background:#fff7ed;padding:.7em 1em;margin:1em 0;font-weight:600}
+table{border-collapse:collapse;margin:.6em 0 1.2em 0;font-size:.88em}
+th,td{border:1px solid #ccc;padding:.25em .55em;text-align:right}th{background:#f3f4f6}
+td:first-child,th:first-child{text-align:left}table.wide{font-size:.8em}
+img{max-width:100%;border:1px solid #ddd;margin:.4em 0}
+.meta{color:#555;font-size:.9em}.sw{display:inline-block;width:.9em;height:.9em;margin-right:.4em;
+vertical-align:-.1em}code{background:#f3f4f6;padding:0 .2em}
+"""
+
+
+def _page(summaries, figs, created, version) -> str:
+    ids = _table(["", "parameter set", "content hash (SHA-256)", "file", "fitted", "source data"],
+                 [[f'<span class="sw" style="background:{_color(k)}"></span>',
+                   _e(s.params.set_id), f"<code>{_e(s.params.content_hash())}</code>",
+                   _e(s.params.source), _e(s.params.provenance.date),
+                   _e(s.params.provenance.source_data)] for k, s in enumerate(summaries)])
+    runners = sorted({s.ringdown.source for s in summaries})
+    parts = [
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
+        f"<title>jointfmu characterization: {_e(', '.join(s.params.set_id for s in summaries))}</title>",
+        f"<style>{_CSS}</style></head><body>",
+        f"<h1>Characterization of {len(summaries)} build{'s' if len(summaries) > 1 else ''}</h1>",
+        f"<p class='meta'>Written {created} by jointfmu {version}. Ring-downs simulated by: "
+        f"{_e(', '.join(runners))}.</p>",
+        f"<div class='caution'>{_e(CAUTION)}</div>",
+        "<h2>Builds</h2>", ids,
+        "<h2>Comparison</h2>", _compare_table(summaries),
+        "<p>Acceleration amplitude at the onset of macro-slip: each mode alone, harmonic at its "
+        "first-harmonic frequency, at the output point where it moves most "
+        "(|φ| ω₁² φmax). Frequency drop: 1 − f₁(φmax)/f0.</p>",
+        "<h2>Damping vs amplitude</h2>",
+        f"<img src='{figs['damping']}' alt='damping ratio vs amplitude per mode'>",
+        "<p><b>ζ_rd</b>: what a free-decay (ring-down) analysis measures, −(d ln A/dt)/ω₁ "
+        "(physics sheet sec. 5, derived). <b>ζ_eq</b>: energy-equivalent damping at the "
+        "first-harmonic frequency, the value the equivalent linear models use for steady-state "
+        "harmonic response (<code>jointfmu linearize</code>). Markers: Hilbert-transform estimate "
+        "(Feldman, MSSP 8(2):119-127, 1994) from the simulated ring-down; it follows ζ_rd in "
+        "micro-slip (tests: within 0.5 %), and lags it where the decay is fast (macro-slip, the "
+        "first periods).</p>",
+        "<h2>Frequency vs amplitude</h2>",
+        f"<img src='{figs['frequency']}' alt='frequency vs amplitude per mode'>",
+        "<h2>Dissipation per cycle</h2>",
+        f"<img src='{figs['dissipation']}' alt='dissipation per cycle vs amplitude per mode'>",
+        "<p>Closed form: Segalman, “A four-parameter Iwan model for lap-type joints”, J. Appl. "
+        "Mech. 72(5):752-760, 2005; markers: the exact joint element cycled once at each "
+        "amplitude. Micro-slip slope 3+χ on log-log axes; in macro-slip D grows linearly "
+        "(4 Fs per unit amplitude).</p>",
+        "<h2>Ring-down: Iwan model vs linear model</h2>",
+        f"<img src='{figs['ringdown']}' alt='ring-down acceleration, nonlinear vs linear'>",
+        "<p>Mode 1 struck alone by a short modal force pulse to about twice its macro-slip onset; "
+        "the linear model has the low-amplitude frequency and damping (what a low-level test "
+        "gives): it overstates the response after a strong hit and runs ahead in phase.</p>",
+    ]
+    for k, s in enumerate(summaries):
+        parts += [f"<h2><span class='sw' style='background:{_color(k)}'></span>"
+                  f"{_e(s.params.set_id)}</h2>",
+                  f"<p>{_e(s.params.description)}</p>",
+                  "<h3>Parameters (mass-normalized modal coordinates)</h3>", _params_table(s),
+                  "<h3>Onset of macro-slip at the output points</h3>", _onset_table(s),
+                  "<p>Displacement relative to the base, x = |φ| φmax, and acceleration "
+                  "a = |φ| ω₁² φmax, each mode alone.</p>",
+                  "<h3>Damping and frequency at a few amplitudes</h3>", _amplitude_table(s),
+                  f"<img src='{figs['loops'][k]}' alt='hysteresis loops of {_e(s.params.set_id)}'>"]
+    parts += [f"<div class='caution'>{_e(CAUTION)}</div>", "</body></html>\n"]
+    return "\n".join(parts)
+
+
+def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None,
+                 runner=None) -> Path:
+    """Write the characterization report of one or more builds.
+
+    Parameters
+    ----------
+    params_list : sequence of ParameterSet or path
+        The builds (at least one), overlaid in this order.
+    out_dir : path-like, optional
+        Report folder (default ``build/report``); it is replaced as a whole.
+    runner : Runner, "fmu", "core" or None
+        Who simulates the ring-downs (default the FMU built from each set).
+
+    Returns
+    -------
+    Path
+        ``out_dir / "index.html"``.
+
+    Notes
+    -----
+    Written atomically: into a temporary folder beside ``out_dir``, which then replaces it; a
+    failure leaves an existing report untouched.
+    """
+    from . import __version__
+
+    if isinstance(params_list, (str, os.PathLike)) or not hasattr(params_list, "__iter__"):
+        params_list = [params_list]
+    sets = [_load(p) for p in params_list]
+    if not sets:
+        raise InputError("write_report: give at least one parameter set")
+    target = Path(out_dir) if out_dir is not None else DEFAULT_REPORT_DIR
+    if target.exists() and not target.is_dir():
+        raise InputError(f"report folder {str(target)!r} exists and is not a folder")
+    run = C.get_runner(runner)
+    summaries = [summarize_build(p, run) for p in sets]
+    target.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
+    os.chmod(tmp, 0o755)  # mkdtemp makes it private; a report is meant to be read
+    try:
+        figs = {"damping": _fig_damping(summaries, tmp), "frequency": _fig_frequency(summaries, tmp),
+                "dissipation": _fig_dissipation(summaries, tmp),
+                "ringdown": _fig_ringdown(summaries, tmp),
+                "loops": [_fig_loops(s, k, tmp) for k, s in enumerate(summaries)]}
+        created = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+        (tmp / "index.html").write_text(_page(summaries, figs, created, __version__),
+                                        encoding="utf-8")
+        _swap_into_place(tmp, target)
+        tmp = None
+    finally:
+        if tmp is not None:
+            shutil.rmtree(tmp, ignore_errors=True)
+    return target / "index.html"
