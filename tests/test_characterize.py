@@ -300,3 +300,16 @@ def test_report_bad_input():
         R.write_report([], "x")
     with pytest.raises(ParameterError, match="cannot be read"):
         R.write_report(["/nonexistent/build.toml"], "x")
+
+
+def test_cli_report(tmp_path, capsys):
+    """``jointfmu report`` (reduced size, core runner) writes the page; a bad file is an error."""
+    from jointfmu.cli import main
+
+    out = tmp_path / "rep"
+    assert main(["report", str(EXAMPLES / "tray_worn.toml"), "-o", str(out), "--runner", "core",
+                 "--quick"]) == 0
+    assert (out / "index.html").exists() and "wrote" in capsys.readouterr().out
+    assert main(["report", str(tmp_path / "missing.toml"), "-o", str(out)]) == 1
+    assert "cannot be read" in capsys.readouterr().err
+    assert main(["report", str(EXAMPLES / "tray_worn.toml"), "--runner", "scipy"]) == 2

@@ -255,3 +255,43 @@ def test_bad_input_names_the_problem():
         L.modal_amplitudes_at_point(NOMINAL, "shaker", 1e-4)
     with pytest.raises(InputError, match="quantity 'd'"):
         L.modal_amplitudes_at_point(NOMINAL, "tip", 1e-4, "d")
+
+
+# --- command line -------------------------------------------------------------------------------
+def test_cli_linearize(tmp_path, capsys):
+    """``jointfmu linearize`` writes what equivalent_linear gives for the same amplitudes."""
+    from jointfmu.cli import main
+
+    out = tmp_path / "lin"
+    rc = main(["linearize", str(EXAMPLES / "tray_nominal.toml"), "--amplitude", "tip.a=196",
+               "--modal-amplitude", "tray_torsion=1e-5", "--outputs", "point.tip.a,base.force",
+               "-o", str(out)])
+    assert rc == 0, capsys.readouterr().err
+    expect = L.modal_amplitudes_at_point(NOMINAL, "tip", 196.0, "a")
+    expect[3] = 1e-5
+    lm = L.LinearModel.load(out)
+    np.testing.assert_allclose(lm.modal_amplitude, expect, rtol=1e-12)
+    ref = L.equivalent_linear(NOMINAL, expect, outputs=["point.tip.a", "base.force"])
+    np.testing.assert_allclose(lm.A, ref.A, rtol=1e-12)
+    np.testing.assert_allclose(lm.C, ref.C, rtol=1e-12)
+    assert "wrote" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("argv, message", [
+    ([], "give --amplitude POINT"),
+    (["--amplitude", "tip"], "--amplitude 'tip': expected POINT"),
+    (["--amplitude", "nose=1e-4"], "point 'nose': not an output point"),
+    (["--modal-amplitude", "9=1e-4"], "mode '9': allowed are 1..4"),
+    (["--modal-amplitude", "1=x"], "'x' is not a number"),
+    (["--modal-amplitude", "all=0", "--inputs", "shaker"], "inputs \\['shaker'\\]: not inputs"),
+])
+def test_cli_linearize_bad_input(tmp_path, capsys, argv, message):
+    import re
+
+    from jointfmu.cli import main
+
+    out = tmp_path / "lin"
+    rc = main(["linearize", str(EXAMPLES / "tray_nominal.toml"), "-o", str(out)] + argv)
+    assert rc == 1
+    assert re.search(message, capsys.readouterr().err)
+    assert not out.exists()

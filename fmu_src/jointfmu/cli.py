@@ -160,6 +160,106 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     return cmd_demo(args)
 
 
+# --- report, linearize (characterization, see report.py and linear.py) --------------------------
+def _args_report(p: argparse.ArgumentParser) -> None:
+    p.add_argument("params", nargs="+", metavar="PARAMS",
+                   help="parameter file(s), one per build, overlaid in this order")
+    p.add_argument("-o", "--output", metavar="DIR",
+                   help="report folder, replaced as a whole (default build/report)")
+    p.add_argument("--runner", choices=("fmu", "core"), default="fmu",
+                   help="who simulates the ring-downs: the built FMU through fmpy (default) or "
+                        "the NumPy core directly (same numbers, faster)")
+    p.add_argument("--quick", action="store_true",
+                   help="reduced size: shorter ring-downs (Hilbert estimates above 0.2 phimax only)")
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    """Write the characterization report of one or more builds."""
+    from .report import write_report
+
+    index = write_report(args.params, args.output, runner=args.runner, quick=args.quick)
+    print(f"wrote {index}")
+    return 0
+
+
+def _args_linearize(p: argparse.ArgumentParser) -> None:
+    p.add_argument("params", metavar="PARAMS", help="parameter file (jointfmu-params/1 TOML)")
+    p.add_argument("--amplitude", metavar="POINT[.x|.v|.a]=VALUE",
+                   help="physical amplitude at an output point: each mode is linearized at the "
+                        "modal amplitude at which it alone, harmonic at its first-harmonic "
+                        "frequency, moves the point by VALUE: .x displacement in m (the default), "
+                        ".v velocity in m/s, .a acceleration in m/s^2; e.g. tip=2e-4, tip.a=196")
+    p.add_argument("--modal-amplitude", action="append", default=[], metavar="MODE=VALUE",
+                   help="modal amplitude of one mode in m*sqrt(kg) (MODE: number from 1, label, "
+                        "or 'all'); repeatable; overrides --amplitude for that mode. Modes given "
+                        "neither are linearized at 0 (the low-amplitude f0 and zeta)")
+    p.add_argument("--inputs", metavar="NAME,...",
+                   help="inputs, comma-separated (default: every point force and the base "
+                        "acceleration); see the error message for the names")
+    p.add_argument("--outputs", metavar="NAME,...",
+                   help="outputs, comma-separated (default: every point x, v, a and base.force)")
+    p.add_argument("-o", "--output", metavar="DIR",
+                   help="folder to write, replaced as a whole (default "
+                        "build/linear/<name>_<build-slug>)")
+
+
+def _split_assignment(text: str, option: str, form: str) -> tuple[str, float]:
+    from .errors import InputError
+
+    key, sep, value = text.partition("=")
+    if not sep or not key.strip() or not value.strip():
+        raise InputError(f"{option} {text!r}: expected {form}")
+    try:
+        v = float(value)
+    except ValueError:
+        raise InputError(f"{option} {text!r}: {value!r} is not a number; expected {form}") from None
+    return key.strip(), v
+
+
+def _cmd_linearize(args: argparse.Namespace) -> int:
+    """Export the equivalent linear state-space model at chosen amplitudes."""
+    import re
+    from pathlib import Path
+
+    import numpy as np
+
+    from .errors import InputError
+    from .linear import amplitude_vector, equivalent_linear, modal_amplitudes_at_point
+
+    ps = load_parameter_set(args.params)
+    if args.amplitude is None and not args.modal_amplitude:
+        raise InputError("give --amplitude POINT[.x|.v|.a]=VALUE or --modal-amplitude MODE=VALUE "
+                         "(--modal-amplitude all=0 for the low-amplitude model)")
+    amps = np.zeros(ps.n_modes)
+    if args.amplitude is not None:
+        key, value = _split_assignment(args.amplitude, "--amplitude", "POINT[.x|.v|.a]=VALUE, "
+                                       "e.g. tip=2e-4 (m) or tip.a=196 (m/s^2)")
+        point, _, qty = key.partition(".")
+        amps = modal_amplitudes_at_point(ps, point, value, qty or "x")
+    chosen: dict = dict(enumerate(amps, start=1))  # later keys win (amplitude_vector)
+    for text in args.modal_amplitude:
+        key, value = _split_assignment(text, "--modal-amplitude",
+                                       "MODE=VALUE, e.g. 1=1e-4 or tray_bounce=1e-4 (m*sqrt(kg))")
+        if key == "all":
+            chosen = {i: value for i in range(1, ps.n_modes + 1)}
+        else:
+            chosen.pop(key, None)  # re-insert at the end: the last one given wins
+            chosen[key] = value
+    amps = amplitude_vector(ps, chosen)
+    split = (lambda s: [n.strip() for n in s.split(",") if n.strip()] if s is not None else None)
+    lm = equivalent_linear(ps, amps, inputs=split(args.inputs), outputs=split(args.outputs))
+    slug = re.sub(r"[^A-Za-z0-9]+", "-", ps.build).strip("-").lower() or "build"
+    out = Path(args.output) if args.output else Path("build") / "linear" / f"{ps.name}_{slug}"
+    lm.save(out)
+    print(f"wrote {out}: {ps.set_id}, {len(lm.input_names)} inputs, {len(lm.output_names)} "
+          f"outputs, {lm.A.shape[0]} states")
+    for i, lab in enumerate(lm.mode_labels):
+        a = lm.modal_amplitude[i]
+        print(f"  mode {i + 1} {lab}: A = {a:.4g} m*sqrt(kg) ({a / lm.phimax[i]:.3g} phimax), "
+              f"f = {lm.frequency[i]:.5g} Hz, zeta = {100 * lm.zeta[i]:.3g} %")
+    return 0
+
+
 # --- the table -------------------------------------------------------------------------------------
 #: name -> (declare arguments, run, one-line help)
 _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
@@ -174,6 +274,10 @@ _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
                                     "sweep, linearize"),
     "export-ssv": (_args_export_ssv, _cmd_export_ssv,
                    "write the fitted mode values as an SSP 1.0 parameter-values file (.ssv)"),
+    "report": (_args_report, _cmd_report,
+               "characterization report (HTML + PNG) of one or more builds"),
+    "linearize": (_args_linearize, _cmd_linearize,
+                  "equivalent linear state-space model at chosen amplitudes (.npz, CSV, JSON)"),
 }
 
 

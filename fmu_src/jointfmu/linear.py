@@ -57,6 +57,7 @@ __all__ = [
     "LinearModel",
     "equivalent_linear",
     "modal_amplitudes_at_point",
+    "amplitude_vector",
     "available_inputs",
     "available_outputs",
     "CAUTION",
@@ -137,7 +138,22 @@ def _mode_index(params, key) -> int:
     return k - 1
 
 
-def _amplitude_vector(params, amplitudes) -> np.ndarray:
+def amplitude_vector(params, amplitudes) -> np.ndarray:
+    """Modal amplitudes as an array, shape (N,), from an array or a mapping.
+
+    Parameters
+    ----------
+    params : ParameterSet
+    amplitudes : array_like, shape (N,), or mapping
+        One modal amplitude per mode [m sqrt(kg)], >= 0; or mode (1-based number, its text, or
+        label) -> amplitude, the modes not named 0.  In a mapping a later key for the same mode
+        wins.
+
+    Raises
+    ------
+    InputError
+        Unknown mode, wrong count, negative or non-finite value.
+    """
     n = params.n_modes
     if isinstance(amplitudes, Mapping):
         out = np.zeros(n)
@@ -450,7 +466,7 @@ def equivalent_linear(params, amplitudes, inputs: Sequence[str] | None = None,
     from . import __version__
     from .modal import ModalModel
 
-    amp = _amplitude_vector(params, amplitudes)
+    amp = amplitude_vector(params, amplitudes)
     ins = _default_inputs(params) if inputs is None else tuple(inputs)
     outs = _default_outputs(params) if outputs is None else tuple(outputs)
     for kind, chosen, allowed in (("input", ins, available_inputs(params)),

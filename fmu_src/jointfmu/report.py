@@ -84,7 +84,8 @@ def _ref_points(params):
     return out
 
 
-def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.03) -> BuildSummary:
+def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.03,
+                    samples_per_period: float = 40.0) -> BuildSummary:
     """Curves, ring-down and Hilbert estimates of one build (the data of one report section).
 
     Parameters
@@ -94,13 +95,16 @@ def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.0
         Who simulates the ring-down (default the FMU, :class:`~.characterize.FmuRunner`).
     start, end : float
         Ring-down from about ``start * phimax`` to ``end * phimax`` (every mode at once).
+    samples_per_period : float
+        Ring-down samples per period of the highest mode.
     """
     ps = _load(params)
     curves = C.amplitude_curves(ps, lo=1e-3, hi=3.0, n=160)
     runner = C.get_runner(runner)
-    rd = C.ring_down(ps, runner, start=start, end=end)
+    rd = C.ring_down(ps, runner, start=start, end=end, samples_per_period=samples_per_period)
     est = [C.identify_ringdown(rd, i) for i in range(ps.n_modes)]
-    rd1 = C.ring_down(ps, runner, start=start, end=0.1, modes=[0], max_periods=60)
+    rd1 = C.ring_down(ps, runner, start=start, end=0.1, modes=[0], max_periods=60,
+                      samples_per_period=samples_per_period)
     return BuildSummary(ps, curves, rd, rd1, est, _ref_points(ps))
 
 
@@ -238,7 +242,8 @@ def _fig_dissipation(summaries, out):
         d2 = C.simulated_dissipation(m, a2)
         slope = math.log(d2[1] / d2[0]) / math.log(10.0)
         k = int(col[1:])
-        ax.text(0.98, 0.04 + 0.075 * k, f"{s.params.build}: measured slope {slope:.3f}, 3+χ = {3 + m.joint.chi:.2f}",
+        ax.text(0.98, 0.04 + 0.075 * k,
+                f"{s.params.build}: measured slope {slope:.3f}, 3+χ = {3 + m.joint.chi:.2f}",
                 transform=ax.transAxes, ha="right", va="bottom", fontsize=7.5, color=col,
                 bbox={"fc": "white", "ec": "none", "alpha": 0.85, "pad": 0.5})
         _onset(ax, cv.phimax * sc, col)
@@ -511,7 +516,7 @@ def _page(summaries, figs, created, version) -> str:
 
 
 def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None,
-                 runner=None) -> Path:
+                 runner=None, *, quick: bool = False) -> Path:
     """Write the characterization report of one or more builds.
 
     Parameters
@@ -522,6 +527,9 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
         Report folder (default ``build/report``); it is replaced as a whole.
     runner : Runner, "fmu", "core" or None
         Who simulates the ring-downs (default the FMU built from each set).
+    quick : bool
+        Reduced size for tests and a first look: ring-downs only down to 0.2 phimax, 24 samples
+        per period (the Hilbert estimates then cover 0.2..~1 phimax only).
 
     Returns
     -------
@@ -544,7 +552,8 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
     if target.exists() and not target.is_dir():
         raise InputError(f"report folder {str(target)!r} exists and is not a folder")
     run = C.get_runner(runner)
-    summaries = [summarize_build(p, run) for p in sets]
+    kw = {"end": 0.2, "samples_per_period": 24.0} if quick else {}
+    summaries = [summarize_build(p, run, **kw) for p in sets]
     target.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
     os.chmod(tmp, 0o755)  # mkdtemp makes it private; a report is meant to be read
