@@ -553,21 +553,18 @@ def cmd_demo(args) -> int:
     return 0
 
 
-def _report_step(param_sets, out_dir: Path, quick: bool, client) -> Path | None:
-    """Step 3: the characterization report (:func:`.report.write_report`)."""
+def _report_step(param_sets, files, out_dir: Path, quick: bool, client, progress: bool = True):
+    """Step 3: the characterization report (:func:`.report.write_report`); returns the page
+    and the runner that served the ring-downs."""
     from . import report as _report
+    from .sweep import CachedRunner, prefetch_ring_downs
 
-    kwargs = {}
-    import inspect
-
-    sig = inspect.signature(_report.write_report)
-    if "quick" in sig.parameters:
-        kwargs["quick"] = quick
-    res = _report.write_report(list(param_sets), out_dir, **kwargs)
-    if isinstance(res, (str, os.PathLike)):
-        return Path(res)
-    page = getattr(res, "page", None) or getattr(res, "html", None)
-    return Path(page) if page is not None else out_dir
+    # the ring-downs run in parallel on the cluster, the report is then drawn here from them
+    cache = prefetch_ring_downs([str(f) for f in files], client, quick=quick,
+                                progress=progress)
+    runner = CachedRunner(cache)
+    page = _report.write_report(list(param_sets), out_dir, runner=runner, quick=quick)
+    return Path(page), runner
 
 
 def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
@@ -593,7 +590,9 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     Returns
     -------
     dict
-        ``paths`` (name -> Path), ``timings`` (step -> s), ``table`` (DataFrame), ``text``.
+        ``paths`` (name -> Path), ``timings`` (step -> s), ``table`` (DataFrame), ``text``
+        (the printable summary), ``linear`` (build -> case and amplitudes), ``ran`` and
+        ``skipped`` (sweep keys run now and found done).
     """
     from .params import load_parameter_set
     from .sweep import dask_client, raise_failures, run_tasks
@@ -636,9 +635,10 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         # 3. report
         step("report")
         try:
-            page = _report_step(psets, out / "report", quick, c)
+            page, runner = _report_step(psets, files, out / "report", quick, c, progress)
             paths["report"] = page
-            log(f"[3/6] report     {page}")
+            log(f"[3/6] report     {page}  ({runner.hits} ring-downs from the cluster, "
+                f"{runner.misses} computed here)")
         except ImportError:
             log("[3/6] report     skipped: this version has no characterization report module")
         done("report")
@@ -696,4 +696,4 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         "CAUTION: " + CAUTION,
     ])
     return {"paths": paths, "timings": timings, "table": table, "text": text,
-            "linear": amps, "total": total}
+            "linear": amps, "total": total, "ran": list(res.ran), "skipped": list(res.skipped)}

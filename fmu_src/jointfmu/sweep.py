@@ -15,6 +15,10 @@ atomically (temp file, then rename) as rows arrive, so an interrupted sweep keep
 finished and a rerun skips it.  A task that fails is reported and not written, so a rerun retries
 it.
 
+The characterization report's ring-downs (one record of every mode ringing down at once, and one
+of the first mode alone, per build) run the same way, one task per build
+(:func:`prefetch_ring_downs`), and reach the report through :class:`CachedRunner`.
+
 Each task opens its own FMU in the worker process: nothing but paths and numbers travels to the
 workers.  pythonfmu shares Python modules by name inside a process; every jointfmu FMU has its own
 model identifier and bundled package name (see :mod:`.build`), so one worker can run several
@@ -42,6 +46,10 @@ __all__ = [
     "read_table",
     "write_table",
     "system_tasks",
+    "raise_failures",
+    "CachedRunner",
+    "characterize_task",
+    "prefetch_ring_downs",
     "DEFAULT_WORKERS",
 ]
 
@@ -143,7 +151,8 @@ def write_table(df, path) -> Path:
 
 # ------------------------------------------------------------------------------- executors
 @contextmanager
-def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS):
+def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS,
+                timeout: float = 10.0):
     """A Dask client: to ``scheduler`` when given, else to a new local cluster of processes.
 
     Parameters
@@ -152,6 +161,8 @@ def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS):
         Address of a running scheduler, e.g. ``"tcp://10.0.0.5:8786"``.
     n_workers : int
         Worker processes of the local cluster (one thread each).
+    timeout : float
+        Seconds to wait for a given scheduler before giving up.
     """
     try:
         from dask.distributed import Client, LocalCluster
@@ -162,7 +173,7 @@ def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS):
             raise InputError(f"--scheduler {scheduler!r}: allowed is a Dask scheduler address "
                              "such as tcp://host:8786")
         try:
-            client = Client(scheduler, timeout=10)
+            client = Client(scheduler, timeout=timeout)
         except Exception as exc:  # noqa: BLE001
             raise InputError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}") from exc
         try:
@@ -172,8 +183,9 @@ def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS):
         return
     if not (isinstance(n_workers, int) and n_workers >= 1):
         raise InputError(f"workers = {n_workers!r}: allowed is an integer >= 1")
+    # dashboard on a free port (":0"): a second cluster on the machine must not collide
     cluster = LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
-                           dashboard_address=None)
+                           dashboard_address=":0")
     client = Client(cluster)
     try:
         yield client
@@ -354,3 +366,118 @@ def system_tasks(builds: Sequence[tuple[Any, Any]], cases: Iterable[str],
                     controller_on=bool(on), settings=s.to_dict(), history_path=hist,
                     linear=bool(linear))))
     return tasks
+
+
+# -------------------------------------------------------------- characterization runs
+def _ring_down_key(params, impulses, dt, n_steps) -> tuple:
+    import numpy as np
+
+    imp = np.asarray(impulses, dtype=float).reshape(-1)
+    return (params.content_hash(), imp.tobytes(), float(dt).hex(), int(n_steps))
+
+
+class _RecordingRunner:
+    """Wraps a ring-down runner and keeps every result by its call arguments."""
+
+    def __init__(self, inner):
+        self.inner = inner
+        self.name = getattr(inner, "name", "fmu")
+        self.records: list = []
+
+    def __call__(self, params, impulses, dt, n_steps):
+        rd = self.inner(params, impulses, dt, n_steps)
+        self.records.append((_ring_down_key(params, impulses, dt, n_steps), rd))
+        return rd
+
+
+class CachedRunner:
+    """A ring-down runner that serves results computed elsewhere (e.g. on Dask workers).
+
+    A call whose arguments (parameter-set hash, impulses, dt, n_steps) were computed before
+    returns that result; any other call is computed by ``fallback``, so the cache only saves
+    time and never changes a number.
+
+    Parameters
+    ----------
+    cache : dict
+        Key -> :class:`~.characterize.RingDown` (from :func:`prefetch_ring_downs`).
+    fallback : runner, optional
+        Default :class:`~.characterize.FmuRunner`.
+    """
+
+    def __init__(self, cache: Mapping, fallback=None):
+        from .characterize import FmuRunner
+
+        self.cache = dict(cache)
+        self.fallback = fallback if fallback is not None else FmuRunner()
+        self.name = getattr(self.fallback, "name", "fmu")
+        self.hits = 0
+        self.misses = 0
+
+    def __call__(self, params, impulses, dt, n_steps):
+        rd = self.cache.get(_ring_down_key(params, impulses, dt, n_steps))
+        if rd is not None:
+            self.hits += 1
+            return rd
+        self.misses += 1
+        return self.fallback(params, impulses, dt, n_steps)
+
+
+def _report_kwargs(quick: bool) -> dict:
+    # The reduced size write_report(quick=True) uses (report.py).  Should the two drift apart,
+    # the prefetched ring-downs simply miss the cache and are recomputed: slower, never wrong.
+    return {"end": 0.2, "samples_per_period": 24.0} if quick else {}
+
+
+def characterize_task(params_path, quick: bool = False) -> list:
+    """Ring-downs of one build, as the characterization report asks for them (worker task).
+
+    Runs :func:`.report.summarize_build` with the FMU runner and returns every ring-down it
+    made as ``(key, RingDown)`` pairs.
+    """
+    from .characterize import FmuRunner
+    from .report import summarize_build
+
+    rec = _RecordingRunner(FmuRunner())
+    summarize_build(params_path, rec, **_report_kwargs(quick))
+    return rec.records
+
+
+def prefetch_ring_downs(param_files: Sequence, client=None, *, quick: bool = False,
+                        progress: bool = True) -> dict:
+    """Compute the characterization ring-downs of every build in parallel.
+
+    One task per build on the Dask ``client`` (or in this process when None); the result feeds
+    :class:`CachedRunner`, which :func:`.report.write_report` then uses.
+
+    Returns
+    -------
+    dict
+        Key -> RingDown.
+    """
+    cache: dict = {}
+    bar = _progress(len(param_files), progress, "characterization")
+    try:
+        if client is None:
+            outs = []
+            for p in param_files:
+                outs.append(characterize_task(str(p), quick))
+                if bar is not None:
+                    bar.update(1)
+        else:
+            from dask.distributed import as_completed
+
+            futs = [client.submit(characterize_task, str(p), quick, pure=False)
+                    for p in param_files]
+            outs = []
+            for f in as_completed(futs):
+                outs.append(f.result())
+                if bar is not None:
+                    bar.update(1)
+    finally:
+        if bar is not None:
+            bar.close()
+    for records in outs:
+        for key, rd in records:
+            cache[key] = rd
+    return cache
