@@ -26,7 +26,6 @@ import numpy as np
 
 from . import characterize as C
 from .errors import InputError
-from .iwan import joint_constants
 from .linear import CAUTION, _swap_into_place, equivalent_linear
 
 __all__ = ["write_report", "BuildSummary", "summarize_build", "DEFAULT_REPORT_DIR"]
