@@ -60,6 +60,8 @@ def test_demo_exits_zero_and_prints_summary_paths_and_caution(demo):
     assert str(out / "system" / "system.html") in text
     assert str(out / "system" / "results.parquet") in text
     assert "timings:" in text
+    # every ring-down of the report came from the cluster (none recomputed in this process)
+    assert "ring-downs from the cluster, 0 computed here" in text
 
 
 def test_fmus_built(demo):

@@ -162,3 +162,20 @@ def test_write_table_is_atomic(tmp_path, monkeypatch):
     monkeypatch.undo()
     assert list(pd.read_parquet(p)["key"]) == ["a"]
     assert not list(tmp_path.glob("*.part"))
+
+
+def test_cached_runner_serves_hits_and_computes_misses():
+    from jointfmu.characterize import CoreRunner
+    from jointfmu.params import load_parameter_set
+    from jointfmu.sweep import CachedRunner, _RecordingRunner
+
+    ps = load_parameter_set(EXAMPLES / "tray_nominal.toml")
+    rec = _RecordingRunner(CoreRunner())
+    imp = np.array([0.05, 0.01, 0.0, 0.0])
+    first = rec(ps, imp, 1e-4, 40)
+    runner = CachedRunner(dict(rec.records), fallback=CoreRunner())
+    again = runner(ps, imp.copy(), 1e-4, 40)
+    assert again is first and (runner.hits, runner.misses) == (1, 0)
+    other = runner(ps, imp * 2, 1e-4, 40)          # not prefetched: computed, same physics
+    assert (runner.hits, runner.misses) == (1, 1)
+    np.testing.assert_array_equal(other.q, CoreRunner()(ps, imp * 2, 1e-4, 40).q)

@@ -226,3 +226,33 @@ def test_coupling_error_is_first_order_in_the_step(linear_joint):
         errs.append(float(np.sqrt(np.mean((on.history["point.tip.a"] - ref) ** 2))
                           / np.sqrt(np.mean(ref**2))))
     assert 3.5 < errs[0] / errs[1] < 7.0, errs
+
+
+# ------------------------------------------------------------------------------- the CLI
+def test_cosim_cli_writes_histories_and_summary(nominal_fmu, tmp_path, capsys):
+    from jointfmu.cli import main
+
+    out = tmp_path / "run.csv"
+    rc = main(["cosim", str(nominal_fmu), "--case", "curb_strike", "--controller", "on",
+               "--duration", "0.02", "-o", str(out)])
+    text = capsys.readouterr().out
+    assert rc == 0, text
+    import pandas as pd
+
+    df = pd.read_csv(out)
+    assert len(df) == 201 and {"time", "point.tip.a", "actuator.force"} <= set(df.columns)
+    assert "tip acceleration" in text and "interface force" in text and "qualification" in text
+
+
+@pytest.mark.parametrize("argv,code,match", [
+    (["--case", "curb_strike", "-o", "x.xlsx"], 1, ".parquet and .csv"),
+    (["--case", "pothole", "-o", "x.csv"], 2, "invalid choice"),
+    (["--case", "curb_strike", "-o", "x.csv", "--step", "0"], 1, "communication step"),
+])
+def test_cosim_cli_bad_input(nominal_fmu, tmp_path, capsys, monkeypatch, argv, code, match):
+    from jointfmu.cli import main
+
+    monkeypatch.chdir(tmp_path)
+    assert main(["cosim", str(nominal_fmu), *argv]) == code
+    assert match in capsys.readouterr().err
+    assert not list(tmp_path.glob("x.*"))
