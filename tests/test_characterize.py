@@ -313,3 +313,24 @@ def test_cli_report(tmp_path, capsys):
     assert main(["report", str(tmp_path / "missing.toml"), "-o", str(out)]) == 1
     assert "cannot be read" in capsys.readouterr().err
     assert main(["report", str(EXAMPLES / "tray_worn.toml"), "--runner", "scipy"]) == 2
+
+
+def test_hilbert_band_pass_separates_two_modes():
+    """Two exact damped sinusoids (50 Hz, zeta 1 %; 83 Hz, zeta 0.4 %, 0.7 of the amplitude): with
+    the zero-phase band-pass around the first (Feldman 2011: filter multi-mode records first) its
+    zeta and frequency come back within 0.5 % and 1e-4 in the middle 80 % of the kept record;
+    without the filter the beating ruins the estimate (error above 100 %)."""
+    z1, f1, z2, f2 = 0.01, 50.0, 0.004, 83.0
+    w1, w2 = 2 * math.pi * f1, 2 * math.pi * f2
+    t = np.arange(0, 4.0, 1 / (40 * f2))
+    x = (np.exp(-z1 * w1 * t) * np.sin(w1 * math.sqrt(1 - z1**2) * t)
+         + 0.7 * np.exp(-z2 * w2 * t) * np.sin(w2 * math.sqrt(1 - z2**2) * t))
+    est = C.hilbert_ringdown(t, x, t_sym=0.0, band=(40.0, 60.0), drop_start_periods=5,
+                             drop_end_periods=20)
+    mid = slice(est.zeta.size // 10, 9 * est.zeta.size // 10)
+    np.testing.assert_allclose(est.zeta[mid], z1, rtol=5e-3)
+    np.testing.assert_allclose(est.frequency[mid], f1 * math.sqrt(1 - z1**2), rtol=1e-4)
+    raw = C.hilbert_ringdown(t, x, t_sym=0.0)
+    assert np.max(np.abs(raw.zeta / z1 - 1)) > 1.0
+    with pytest.raises(InputError, match="band = \\(60.0, 40.0\\) Hz: need 0 < low < high"):
+        C.hilbert_ringdown(t, x, t_sym=0.0, band=(60.0, 40.0))

@@ -59,10 +59,13 @@ __all__ = [
     "hilbert_ringdown",
     "identify_ringdown",
     "hysteresis_loop",
+    "BAND_ORDER",
     "simulated_dissipation",
 ]
 
 _TWO_PI = 2.0 * math.pi
+#: Order of the Butterworth band-pass of :func:`hilbert_ringdown` (run twice: zero phase).
+BAND_ORDER = 6
 
 
 def _joint(mode):
@@ -607,8 +610,8 @@ def _box(x, n):
 def hilbert_ringdown(t, x, *, extension: str | None = "odd", t_sym: float | None = None,
                      f_hint: float | None = None, method: str = "simplified",
                      smooth_periods: float = 1.0, drop_start_periods: float = 2.0,
-                     drop_end_periods: float = 4.0, remove_offset: bool = True
-                     ) -> HilbertEstimate:
+                     drop_end_periods: float = 4.0, remove_offset: bool = True,
+                     band: tuple[float, float] | None = None) -> HilbertEstimate:
     """Damping and frequency vs amplitude of one free decay, by the Hilbert transform.
 
     Analytic signal ``X = x + i H[x] = A exp(i psi)`` (:func:`scipy.signal.hilbert`), frequency
@@ -643,6 +646,12 @@ def hilbert_ringdown(t, x, *, extension: str | None = "odd", t_sym: float | None
         In periods of the mean frequency.
     remove_offset : bool
         Remove a running mean (window one period, applied twice) first.
+    band : (float, float), optional
+        Pass band [Hz] of a zero-phase band-pass filter applied first (Butterworth of order
+        :data:`BAND_ORDER`, run forward and backward with :func:`scipy.signal.sosfiltfilt`), to
+        take one mode out of a multi-mode record (Feldman 2011).  It has its own transients,
+        lasting about ``BAND_ORDER / (pi * bandwidth)``: drop at least that many periods at the
+        start and end (more at the end, where the record stops abruptly).
 
     Returns
     -------
@@ -673,6 +682,14 @@ def hilbert_ringdown(t, x, *, extension: str | None = "odd", t_sym: float | None
         i0 = ext.size - n
     else:
         ext, i0 = x.copy(), 0
+    if band is not None:
+        lo, hi = (float(b) for b in band)
+        nyq = 0.5 / dt
+        if not 0 < lo < hi < nyq:
+            raise InputError(f"band = {band!r} Hz: need 0 < low < high < {nyq:g} Hz (half the "
+                             "sample rate)")
+        sos = _signal.butter(BAND_ORDER, [lo, hi], btype="bandpass", fs=1.0 / dt, output="sos")
+        ext = _signal.sosfiltfilt(sos, ext)
     if f_hint is None:
         psi = np.unwrap(np.angle(_signal.hilbert(ext - ext.mean())))[i0:]
         mid = slice(n // 4, 3 * n // 4)
