@@ -103,6 +103,7 @@ def _write_once(path: Path, text: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(text)
+        os.chmod(tmp, 0o644)  # mkstemp makes it private; the source is no secret
         if stale:
             os.replace(tmp, path)  # a damaged copy: replace it (Numba then recompiles)
             return
