@@ -106,6 +106,7 @@ def test_system_page_tables_plots_and_caution(demo):
     assert 'id="system-results"' in page and 'id="controller-benefit"' in page
     assert page.count("<tr>") >= N_BUILDS * N_CASES * 2 + N_BUILDS * N_CASES
     assert CAUTION in page
+    assert 'href="../report/index.html"' in page and (out / "report" / "index.html").is_file()
     for case in LOAD_CASES:
         assert case in page
     pngs = sorted((out / "system").glob("*.png"))

@@ -295,7 +295,8 @@ def _text_table(df, keys=None) -> str:
 
 
 # ------------------------------------------------------------------------- system page
-def write_system_page(table, out_dir, history_dir=None, title="System co-simulation") -> dict:
+def write_system_page(table, out_dir, history_dir=None, title="System co-simulation",
+                      report_href: str | None = None) -> dict:
     """Summary table and plots of a system sweep: ``system.html`` and PNGs in ``out_dir``.
 
     Parameters
@@ -305,6 +306,8 @@ def write_system_page(table, out_dir, history_dir=None, title="System co-simulat
     out_dir : path-like
     history_dir : path-like, optional
         Folder of the runs' history files, for the time-history plot.
+    report_href : str, optional
+        Relative link to the characterization report of the same builds.
 
     Returns
     -------
@@ -444,6 +447,8 @@ def write_system_page(table, out_dir, history_dir=None, title="System co-simulat
                                f"</td></tr>")
     figs = "".join(f'<p><img src="{e(p.name)}" alt="{e(k)}"></p>'
                    for k, p in paths.items() if k.startswith("fig_"))
+    report_link = (f'<p>Characterization of the same builds: <a href="{e(report_href)}">'
+                   'report</a>.</p>' if report_href else "")
     case_rows = "".join(f"<tr><td>{e(lc.name)}</td><td>{e(lc.description)}</td></tr>"
                         for lc in LOAD_CASES.values() if lc.name in cases)
     text = f"""<!DOCTYPE html>
@@ -454,6 +459,7 @@ table{{border-collapse:collapse;font-size:90%}}td,th{{border:1px solid #bbb;padd
 <h1>{e(title)}</h1>
 <p class="caution"><b>Caution.</b> {e(CAUTION)} The builds, load cases and controller are
 invented demo data.</p>
+{report_link}
 <h2>The system</h2>
 <p>Each tray build is its FMI 2.0 co-simulation FMU, stepped with fmpy in a master loop that
 exchanges values every communication step with a loads model (base acceleration of the chassis
@@ -659,7 +665,8 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
             f"-> {paths['results']}")
     # 5. system page
     step("page")
-    pp = write_system_page(table, sys_dir, sys_dir / "histories")
+    pp = write_system_page(table, sys_dir, sys_dir / "histories",
+                           report_href="../report/index.html" if "report" in paths else None)
     paths.update({f"system:{k}": v for k, v in pp.items()})
     done("page")
     log(f"[5/6] page       {pp['page']}")
