@@ -21,6 +21,8 @@ from jointfmu.errors import InputError
 from jointfmu.integrate import ModalSimulator, kernel_info
 
 numba = pytest.importorskip("numba")
+if os.environ.get("JOINTFMU_KERNEL", "").strip().lower() == "python":
+    pytest.skip("JOINTFMU_KERNEL=python: the compiled kernel is switched off", allow_module_level=True)
 
 
 def three_modes() -> ParameterSet:
