@@ -256,3 +256,23 @@ def test_cosim_cli_bad_input(nominal_fmu, tmp_path, capsys, monkeypatch, argv, c
     assert main(["cosim", str(nominal_fmu), *argv]) == code
     assert match in capsys.readouterr().err
     assert not list(tmp_path.glob("x.*"))
+
+
+def test_loading_an_fmu_first_leaves_building_possible(nominal_fmu, tmp_path):
+    # In a fresh process: run the FMU (pythonfmu's binary puts the FMU's resources, which hold a
+    # copy of pythonfmu without binaries, first on sys.path), then build an FMU.  Found when a
+    # sweep worker ran a characterization task after system runs.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys\n"
+        "from jointfmu.system import FmuStructure\n"
+        "from jointfmu.build import build_fmu\n"
+        f"with FmuStructure({str(nominal_fmu)!r}) as s:\n"
+        "    s.do_step(0.0, 1e-4)\n"
+        "assert not [p for p in sys.path if p.endswith('resources')], sys.path\n"
+        f"build_fmu({str(NOMINAL)!r}, {str(tmp_path / 'again.fmu')!r})\n"
+        "print('ok')\n")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0 and "ok" in r.stdout, r.stderr[-2000:]

@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import math
 import os
+import sys
 import tempfile
 import time
 import traceback
@@ -183,15 +184,28 @@ def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS,
         return
     if not (isinstance(n_workers, int) and n_workers >= 1):
         raise InputError(f"workers = {n_workers!r}: allowed is an integer >= 1")
-    # dashboard on a free port (":0"): a second cluster on the machine must not collide
-    cluster = LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
-                           dashboard_address=":0")
+    # Worker processes are spawned with this process's sys.path; leave out the resources
+    # folders that loading FMUs put there (see system._pin_pythonfmu), else a worker could
+    # import pythonfmu from an FMU's copy and then fail to build FMUs.
+    saved = list(sys.path)
+    sys.path[:] = [p for p in sys.path if not _is_fmu_resources(p)]
+    try:
+        # dashboard on a free port (":0"): a second cluster on the machine must not collide
+        cluster = LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
+                               dashboard_address=":0")
+    finally:
+        sys.path[:] = saved
     client = Client(cluster)
     try:
         yield client
     finally:
         client.close()
         cluster.close()
+
+
+def _is_fmu_resources(path: str) -> bool:
+    p = Path(path)
+    return p.name == "resources" and (p.parent / "modelDescription.xml").is_file()
 
 
 def _progress(total: int, enabled: bool, desc: str):
@@ -437,7 +451,9 @@ def characterize_task(params_path, quick: bool = False) -> list:
     """
     from .characterize import FmuRunner
     from .report import summarize_build
+    from .system import _pin_pythonfmu
 
+    _pin_pythonfmu()    # before any FMU of an earlier task could shadow it
     rec = _RecordingRunner(FmuRunner())
     summarize_build(params_path, rec, **_report_kwargs(quick))
     return rec.records

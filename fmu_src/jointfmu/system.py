@@ -37,6 +37,7 @@ import json
 import math
 import os
 import shutil
+import sys
 import tempfile
 import time
 from dataclasses import asdict, dataclass, field
@@ -295,6 +296,24 @@ def _cleanup_extracted() -> None:
 atexit.register(_cleanup_extracted)
 
 
+def _pin_pythonfmu() -> None:
+    """Import pythonfmu from its installed location before any FMU is loaded in this process.
+
+    pythonfmu's FMU binary puts the FMU's ``resources`` folder first on ``sys.path``, and that
+    folder holds a copy of pythonfmu's runtime without the FMU binaries.  If the first import of
+    ``pythonfmu`` came from there, a later ``build_fmu`` in the same process (a sweep worker
+    that then runs a characterization task, say) finds no binary and fails.
+    """
+    import pythonfmu.builder  # noqa: F401
+
+
+def _unpin_resources(folder: str) -> None:
+    """Take an FMU's resources folder off ``sys.path`` again (its modules stay imported), so
+    child processes spawned later (Dask workers) do not inherit it."""
+    res = os.path.join(folder, "resources")
+    sys.path[:] = [p for p in sys.path if os.path.normpath(p) != os.path.normpath(res)]
+
+
 def _extract_once(fmu_path: Path) -> str:
     """Unzip an FMU once per process (keyed by path, size and mtime)."""
     from fmpy import extract
@@ -347,7 +366,9 @@ class FmuStructure:
         cb.allocateMemory = fmi2CallbackAllocateMemoryTYPE(calloc)
         cb.freeMemory = fmi2CallbackFreeMemoryTYPE(free)
         self._cb = cb          # keep the ctypes callbacks alive as long as the instance
-        self._fmu = FMU2Slave(guid=md.guid, unzipDirectory=_extract_once(path),
+        _pin_pythonfmu()
+        self._dir = _extract_once(path)
+        self._fmu = FMU2Slave(guid=md.guid, unzipDirectory=self._dir,
                               modelIdentifier=md.coSimulation.modelIdentifier,
                               instanceName=instance_name)
         self._fmu.instantiate(callbacks=cb, loggingOn=False)
@@ -396,6 +417,7 @@ class FmuStructure:
                 self._fmu.terminate()
             finally:
                 self._fmu.freeInstance()
+                _unpin_resources(self._dir)
 
     def __enter__(self):
         return self
