@@ -114,11 +114,13 @@ def available_outputs(params) -> tuple[str, ...]:
 
 
 def _default_inputs(params):
-    return tuple(n for n in available_inputs(params) if not n.startswith("mode["))
+    phys = tuple(n for n in available_inputs(params) if not n.startswith("mode["))
+    return phys or available_inputs(params)  # no points and no base: the modal forces
 
 
 def _default_outputs(params):
-    return tuple(n for n in available_outputs(params) if not n.startswith("mode["))
+    phys = tuple(n for n in available_outputs(params) if not n.startswith("mode["))
+    return phys or available_outputs(params)  # no points and no base: the modal coordinates
 
 
 def _mode_index(params, key) -> int:
@@ -449,10 +451,10 @@ def equivalent_linear(params, amplitudes, inputs: Sequence[str] | None = None,
         physical amplitude at an output point use :func:`modal_amplitudes_at_point`.
     inputs : sequence of str, optional
         Input names (see :func:`available_inputs`); default all point forces and the base
-        acceleration (not the direct modal forces).
+        acceleration (the direct modal forces only when there are neither).
     outputs : sequence of str, optional
         Output names (see :func:`available_outputs`); default every point x, v, a and the base
-        force (not the modal coordinates).
+        force (the modal coordinates only when there are neither).
 
     Returns
     -------
