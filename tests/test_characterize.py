@@ -231,7 +231,9 @@ def test_feldman_estimate_differs_by_frequency_slope(nominal_ringdown):
 def test_fmu_ringdown_equals_core():
     """The FMU (built by build.py, run by fmpy) and the core give the same ring-down, and it is
     identified the same: the report's default runner is the FMU."""
-    fmu = C.ring_down(NOMINAL, "fmu", start=1.0, end=0.3, modes=[3])
+    from jointfmu.report import FmuRunner
+
+    fmu = C.ring_down(NOMINAL, FmuRunner(), start=1.0, end=0.3, modes=[3])
     core = C.ring_down(NOMINAL, "core", start=1.0, end=0.3, modes=[3])
     assert fmu.source == "fmu" and core.source == "core"
     np.testing.assert_allclose(fmu.q, core.q, rtol=0, atol=1e-12 * np.abs(core.q).max())
@@ -246,8 +248,14 @@ def test_bad_inputs_name_the_problem():
     m = NOMINAL.modes[0]
     with pytest.raises(InputError, match="amplitudes: must be a non-empty 1-D array"):
         C.mode_curves(m, [-1.0])
-    with pytest.raises(InputError, match="runner = 'scipy': allowed are 'fmu'"):
+    with pytest.raises(InputError, match="runner = 'scipy': allowed are 'core' or a callable"):
         C.get_runner("scipy")
+    with pytest.raises(InputError, match="runner = 'fmu': pass jointfmu.report.FmuRunner"):
+        C.get_runner("fmu")
+    from jointfmu.report import get_runner
+
+    with pytest.raises(InputError, match="runner = 'scipy': allowed are 'fmu' \\(default\\)"):
+        get_runner("scipy")
     with pytest.raises(InputError, match="need 0 < end < start"):
         C.ring_down(NOMINAL, "core", start=0.1, end=0.5)
     t = np.arange(1000) * 1e-3

@@ -7,9 +7,10 @@ Three parts, no plotting here (see :mod:`.report`):
   macro-slip.  Formulas and their tags follow the project's physics sheet (``physics.md``
   sec. 2, 4, 5); the sources are named beside each function.
 * **Ring-downs** (:class:`RingDown`) made by a *runner*: a callable that applies a short modal
-  force pulse to every mode at once and returns the free decay.  :class:`FmuRunner` (the
-  default) builds the FMU of the parameter set and runs it with fmpy; :class:`CoreRunner` steps
-  the NumPy core directly (same numbers, about ten times faster, no FMU needed).
+  force pulse to every mode at once and returns the free decay.  :class:`CoreRunner` steps the
+  NumPy core directly; :class:`jointfmu.report.FmuRunner` (the report's default) builds the FMU
+  of the parameter set and runs it with fmpy (same numbers, about ten times slower).  This
+  module belongs to the physics core and never imports pythonfmu or fmpy.
 * **Hilbert-transform identification** (:func:`hilbert_ringdown`) of damping and frequency vs
   amplitude from one decaying record (M. Feldman, "Non-linear system vibration analysis using
   Hilbert transform - I. Free vibration analysis method 'FREEVIB'", Mech. Syst. Signal Process.
@@ -25,10 +26,8 @@ standards and licensed engineering practice.
 from __future__ import annotations
 
 import math
-import os
-import tempfile
+import warnings
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Protocol, Sequence
 
 import numpy as np
@@ -51,7 +50,7 @@ __all__ = [
     "RingDown",
     "Runner",
     "CoreRunner",
-    "FmuRunner",
+    "check_run_args",
     "get_runner",
     "ring_down",
     "predicted_decay_time",
@@ -393,7 +392,14 @@ class Runner(Protocol):
     def __call__(self, params, impulses, dt: float, n_steps: int) -> RingDown: ...
 
 
-def _check_run_args(params, impulses, dt, n_steps):
+def check_run_args(params, impulses, dt, n_steps):
+    """Checked ``(impulses, dt, n_steps)`` of a runner call (for writers of runners).
+
+    Raises
+    ------
+    InputError
+        Wrong number of impulses, non-finite values, ``dt <= 0`` or ``n_steps < 1``.
+    """
     imp = np.asarray(impulses, dtype=float).reshape(-1)
     if imp.shape != (params.n_modes,) or not np.all(np.isfinite(imp)):
         raise InputError(f"impulses: must be {params.n_modes} finite numbers (one per mode, "
@@ -422,7 +428,7 @@ class CoreRunner:
     def __call__(self, params, impulses, dt, n_steps) -> RingDown:
         from .integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator
 
-        imp, dt, n_steps = _check_run_args(params, impulses, dt, n_steps)
+        imp, dt, n_steps = check_run_args(params, impulses, dt, n_steps)
         sim = ModalSimulator(params, steps_per_period=self.steps_per_period or DEFAULT_STEPS_PER_PERIOD)
         q = np.empty((n_steps + 1, params.n_modes))
         a = np.empty((n_steps + 1, len(params.output_points)))
@@ -440,73 +446,35 @@ class CoreRunner:
                         tuple(p.label for p in params.output_points), imp, dt, "core")
 
 
-@dataclass
-class FmuRunner:
-    """Ring-downs from the FMU of the parameter set, run with fmpy.
-
-    The FMU is built once per parameter set (by content hash) into ``build_dir`` (default a
-    temporary folder removed with the runner) with :func:`~.build.build_fmu`.
-
-    Parameters
-    ----------
-    build_dir : path-like, optional
-        Where FMUs are written (kept).  Default: a private temporary folder.
-    steps_per_period : float, optional
-        Value of the FMU parameter ``steps_per_period`` (default: the FMU's start value).
-    """
-
-    build_dir: str | os.PathLike | None = None
-    steps_per_period: float | None = None
-    name: str = "fmu"
-    _fmus: dict = field(default_factory=dict, repr=False)
-    _tmp: object = field(default=None, repr=False)
-
-    def fmu_for(self, params) -> Path:
-        """The FMU of ``params`` (built on first use) [path]."""
-        from .build import build_fmu
-        from .params import save_parameter_set
-
-        h = params.content_hash()
-        if h not in self._fmus:
-            if self.build_dir is None:
-                if self._tmp is None:
-                    self._tmp = tempfile.TemporaryDirectory(prefix="jointfmu_rd_")
-                folder = Path(self._tmp.name)
-            else:
-                folder = Path(self.build_dir)
-                folder.mkdir(parents=True, exist_ok=True)
-            toml = save_parameter_set(params, folder / f"{h[:12]}.toml")
-            self._fmus[h] = build_fmu(toml, folder / f"{h[:12]}.fmu").path
-        return self._fmus[h]
-
-    def __call__(self, params, impulses, dt, n_steps) -> RingDown:
-        from .build import run_fmu
-
-        imp, dt, n_steps = _check_run_args(params, impulses, dt, n_steps)
-        fmu = self.fmu_for(params)
-        inputs = {f"mode[{i + 1}].force": [imp[i] / dt, 0.0] for i in range(params.n_modes)}
-        start = {"steps_per_period": float(self.steps_per_period)} if self.steps_per_period else None
-        header, rows = run_fmu(fmu, [0.0, dt], inputs, stop_time=n_steps * dt, step=dt,
-                               start_values=start)
-        r = np.asarray(rows, dtype=float)
-        col = {name: k for k, name in enumerate(header)}
-        q = r[:, [col[f"mode[{i + 1}].q"] for i in range(params.n_modes)]]
-        labels = tuple(p.label for p in params.output_points)
-        a = r[:, [col[f"point.{lab}.a"] for lab in labels]] if labels else np.zeros((len(r), 0))
-        return RingDown(r[:, 0], q, a, labels, imp, dt, "fmu")
-
-
 def get_runner(runner=None) -> Runner:
-    """A runner from ``None`` / ``"fmu"`` (default, :class:`FmuRunner`), ``"core"``
-    (:class:`CoreRunner`) or any callable with the :class:`Runner` signature."""
-    if runner is None or runner == "fmu":
-        return FmuRunner()
-    if runner == "core":
+    """A runner from ``None`` / ``"core"`` (:class:`CoreRunner`) or any callable with the
+    :class:`Runner` signature.
+
+    The FMU runner, :class:`jointfmu.report.FmuRunner`, lives with the front end: this module
+    is part of the physics core, which never imports pythonfmu or fmpy.
+    """
+    if runner is None or runner == "core":
         return CoreRunner()
+    if runner == "fmu":
+        raise InputError("runner = 'fmu': pass jointfmu.report.FmuRunner() (the physics core does "
+                         "not import fmpy), or use 'core'")
     if isinstance(runner, str) or not callable(runner):
-        raise InputError(f"runner = {runner!r}: allowed are 'fmu' (default), 'core' or a callable "
-                         "runner(params, impulses, dt, n_steps) -> RingDown")
+        raise InputError(f"runner = {runner!r}: allowed are 'core' or a callable "
+                         "runner(params, impulses, dt, n_steps) -> RingDown such as "
+                         "jointfmu.report.FmuRunner()")
     return runner
+
+
+def __getattr__(name):
+    # FmuRunner moved to .report (this module is physics core: no fmpy).  Older callers that
+    # import it from here still get it, with a warning naming the new place.
+    if name == "FmuRunner":
+        warnings.warn("jointfmu.characterize.FmuRunner moved to jointfmu.report.FmuRunner",
+                      DeprecationWarning, stacklevel=2)
+        from .report import FmuRunner
+
+        return FmuRunner
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def ring_down(params, runner=None, *, start: float = 1.0, end: float = 0.03,
@@ -521,8 +489,8 @@ def ring_down(params, runner=None, *, start: float = 1.0, end: float = 0.03,
     Parameters
     ----------
     params : ParameterSet
-    runner : Runner, "fmu", "core" or None
-        See :func:`get_runner` (default the FMU).
+    runner : Runner, "core" or None
+        See :func:`get_runner` (default the core; the report passes the FMU runner).
     start, end : float
         Start and end amplitude relative to phimax (``0 < end < start``).
     samples_per_period : float
