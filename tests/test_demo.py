@@ -65,10 +65,14 @@ def test_demo_exits_zero_and_prints_summary_paths_and_caution(demo):
 
 
 def test_fmus_built(demo):
-    _, out, _ = demo
+    _, out, text = demo
     fmus = sorted((out / "fmus").glob("*.fmu"))
     assert [f.stem for f in fmus] == ["tray_nominal", "tray_undertorqued", "tray_worn"]
     assert all(f.stat().st_size > 10_000 for f in fmus)
+    # the loads model and controller as FMUs of their own, and the three-FMU run
+    system = sorted(f.stem for f in (out / "fmus" / "system").glob("*.fmu"))
+    assert system == ["active_damper"] + sorted(f"loads_{c}" for c in LOAD_CASES)
+    assert "as three FMUs: identical to the sweep's run" in text
 
 
 def test_results_table_one_row_per_run(demo):

@@ -106,7 +106,7 @@ def _settings(args) -> "object":
 
     c = ControllerSettings(gain=args.gain, tau=args.tau, force_limit=args.force_limit)
     return SystemSettings(step=args.step, duration=args.duration, seed=args.seed,
-                          level=args.level, controller=c)
+                          level=args.level, controller=c, components=args.components)
 
 
 def _controller_modes(text: str) -> tuple[bool, ...]:
@@ -173,6 +173,9 @@ def _add_system_options(p: argparse.ArgumentParser) -> None:
                    help=f"actuator time constant [s] (default {c.tau:g})")
     g.add_argument("--force-limit", type=float, default=c.force_limit, metavar="N",
                    help=f"actuator force limit [N] (default {c.force_limit:g})")
+    g.add_argument("--components", default="python", choices=["python", "fmu"],
+                   help="loads model and controller as Python components of the loop (default) "
+                        "or as FMUs of their own: a system of three FMUs, same numbers")
 
 
 def add_cosim_args(p: argparse.ArgumentParser) -> None:
@@ -490,6 +493,43 @@ Full table: <code>results.parquet</code>; summary: <code>{e(paths['summary_csv']
     return paths
 
 
+def _three_fmu_check(build, table, settings, quick: bool, fmu_dir: Path) -> dict:
+    """Build a loads FMU per load case and the controller FMU; rerun one sweep case (first
+    build, curb_strike, controller on) as a system of three FMUs and compare with the sweep."""
+    from .components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
+    from .system import LOAD_CASES, summarize
+
+    paths = {}
+    per_case = {}
+    for c in LOAD_CASES:
+        sc = replace(settings, duration=LOAD_CASES[c].quick_duration) if quick else settings
+        per_case[c] = sc
+        paths[f"fmu:loads_{c}"] = build_loads_fmu(c, fmu_dir / f"loads_{c}.fmu", sc)
+    paths["fmu:active_damper"] = build_controller_fmu(fmu_dir / "active_damper.fmu",
+                                                      settings.controller)
+    params_path, tray = build
+    case = "curb_strike"
+    sc = per_case[case]
+    run = run_system_of_fmus(tray, paths[f"fmu:loads_{case}"], paths["fmu:active_damper"], True,
+                             sc, case=case)
+    got = summarize(run, sc.tip, sc.controller.point, sc.controller.force_limit)
+    from .params import load_parameter_set
+
+    b = load_parameter_set(params_path).build
+    row = table[(table["build"] == b) & (table["case"] == case) & (table["controller"])]
+    if not len(row):
+        return {"paths": paths, "text": "no sweep row to compare with", "equal": None}
+    r = row.iloc[0]
+    names = ("tip_acc_peak", "tip_acc_rms", "base_force_peak", "energy_joint",
+             "actuator_force_peak")
+    equal = all(got[n] == r[n] for n in names)
+    text = (f"{b} {case} controller on as three FMUs: "
+            + ("identical to the sweep's run" if equal else
+               "DIFFERS from the sweep's run: " + ", ".join(
+                   f"{n} {got[n]:.6g} vs {r[n]:.6g}" for n in names)))
+    return {"paths": paths, "text": text, "equal": equal}
+
+
 # ------------------------------------------------------------------------------ linear
 def amplitudes_that_matter(table, params_by_build) -> dict:
     """Per build: the load case with the largest RMS tip acceleration (controller off) and its
@@ -640,13 +680,15 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     with ctx as c:
         # 3. report
         step("report")
-        try:
+        import importlib.util
+
+        if importlib.util.find_spec(f"{__package__}.report") is None:
+            log("[3/6] report     skipped: this version has no characterization report module")
+        else:
             page, runner = _report_step(psets, files, out / "report", quick, c, progress)
             paths["report"] = page
             log(f"[3/6] report     {page}  ({runner.hits} ring-downs from the cluster, "
                 f"{runner.misses} computed here)")
-        except ImportError:
-            log("[3/6] report     skipped: this version has no characterization report module")
         done("report")
         # 4. sweep
         step("sweep")
@@ -663,6 +705,13 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         done("sweep")
         log(f"[4/6] sweep      {len(res.ran)} runs done, {len(res.skipped)} reused "
             f"-> {paths['results']}")
+    # 4b. the same system as three FMUs: loads and controller FMUs to hand on, and one run
+    step("three_fmus")
+    three = _three_fmu_check(builds[0], table, settings, quick, out / "fmus" / "system")
+    paths.update(three["paths"])
+    done("three_fmus")
+    log(f"[4/6] 3 FMUs     loads + controller FMUs in {out / 'fmus' / 'system'}; "
+        f"{three['text']}")
     # 5. system page
     step("page")
     pp = write_system_page(table, sys_dir, sys_dir / "histories",

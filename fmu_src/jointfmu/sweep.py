@@ -390,6 +390,15 @@ def _ring_down_key(params, impulses, dt, n_steps) -> tuple:
     return (params.content_hash(), imp.tobytes(), float(dt).hex(), int(n_steps))
 
 
+def _fmu_runner():
+    """The characterization report's FMU ring-down runner (in report.py; older: characterize)."""
+    try:
+        from .report import FmuRunner
+    except ImportError:
+        from .characterize import FmuRunner
+    return FmuRunner()
+
+
 class _RecordingRunner:
     """Wraps a ring-down runner and keeps every result by its call arguments."""
 
@@ -416,14 +425,12 @@ class CachedRunner:
     cache : dict
         Key -> :class:`~.characterize.RingDown` (from :func:`prefetch_ring_downs`).
     fallback : runner, optional
-        Default :class:`~.characterize.FmuRunner`.
+        Default the report's FMU runner (``FmuRunner``).
     """
 
     def __init__(self, cache: Mapping, fallback=None):
-        from .characterize import FmuRunner
-
         self.cache = dict(cache)
-        self.fallback = fallback if fallback is not None else FmuRunner()
+        self.fallback = fallback if fallback is not None else _fmu_runner()
         self.name = getattr(self.fallback, "name", "fmu")
         self.hits = 0
         self.misses = 0
@@ -449,12 +456,11 @@ def characterize_task(params_path, quick: bool = False) -> list:
     Runs :func:`.report.summarize_build` with the FMU runner and returns every ring-down it
     made as ``(key, RingDown)`` pairs.
     """
-    from .characterize import FmuRunner
     from .report import summarize_build
     from .system import _pin_pythonfmu
 
     _pin_pythonfmu()    # before any FMU of an earlier task could shadow it
-    rec = _RecordingRunner(FmuRunner())
+    rec = _RecordingRunner(_fmu_runner())
     summarize_build(params_path, rec, **_report_kwargs(quick))
     return rec.records
 
