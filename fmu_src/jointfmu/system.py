@@ -515,7 +515,8 @@ class SystemSettings:
         Output point whose acceleration is summarised.
     components : {"python", "fmu"}
         Loads model and controller as Python components of the loop, or as FMUs of their own
-        (:mod:`.components`; same numbers, about 4x the loop's cost per step, measured).
+        (:mod:`.components`; same numbers, about 2x the loop's cost per step, measured in
+        ``tests/bench/bench_system.py``).
     """
 
     step: float = 1e-4
