@@ -179,3 +179,13 @@ def test_cached_runner_serves_hits_and_computes_misses():
     other = runner(ps, imp * 2, 1e-4, 40)          # not prefetched: computed, same physics
     assert (runner.hits, runner.misses) == (1, 1)
     np.testing.assert_array_equal(other.q, CoreRunner()(ps, imp * 2, 1e-4, 40).q)
+
+
+def test_existing_scheduler_by_address(tasks, tmp_path, dask_local_client):
+    # what a user who outgrows one machine does: give the address of a running scheduler
+    address = dask_local_client.scheduler.address
+    assert address.startswith("tcp://")
+    few = tasks[:2]
+    a = run_tasks(few, tmp_path / "remote.parquet", scheduler=address, progress=False)
+    b = run_tasks(few, tmp_path / "loop.parquet", executor="loop", progress=False)
+    pd.testing.assert_frame_equal(_norm(a.table), _norm(b.table), check_exact=True)
