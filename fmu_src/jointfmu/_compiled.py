@@ -199,10 +199,10 @@ def _self_check(mod) -> None:
         for i in range(n):
             _K.joint_set_virgin(i, 0.0, jc, js)
         st[:, 5] = 0.1
+        n_sub = np.array([3, 2], dtype=np.int64)
         for k in range(150):
             f = np.array([20.0, -40.0]) * np.sin(0.37 * k) * np.exp(-0.02 * k)
-            js[:, _K.LOW] = js[:, _K.DEPTH]
-            kern.advance(3, coef, f, st, jc, js, stk, bk)
+            kern.advance(n_sub, coef, f, st, jc, js, stk, bk)
         results.append(np.concatenate([st.ravel(), js.ravel(), stk.ravel()]))
     if not np.array_equal(results[0], results[1]):
         raise ImportError("the compiled kernel disagrees with the plain-Python kernel on the "

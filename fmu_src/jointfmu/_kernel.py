@@ -307,12 +307,12 @@ def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
 
 
 def advance(n_sub, coef, f, st, jc, js, stk, bk):
-    """Advance every mode by ``n_sub`` equal sub-steps.
+    """Advance every mode over one caller's step, mode i by ``n_sub[i]`` equal sub-steps.
 
     Parameters
     ----------
-    n_sub : int
-        Number of sub-steps.
+    n_sub : ndarray of int64, shape (N,)
+        Sub-steps per mode (each mode's step is chosen from its own frequency).
     coef : ndarray, shape (N, 11)
         Per mode: Phi (2x2, row-major: 4), Gamma0 (q, v), Gamma1 (q, v), Gamma2/2 (q, v), h.
     f : ndarray, shape (N,)
@@ -322,14 +322,28 @@ def advance(n_sub, coef, f, st, jc, js, stk, bk):
     jc, js, stk, bk :
         Joint constants, joint state and reversal stacks (see :func:`joint_move`).
 
+    Returns
+    -------
+    float
+        Sum of the final q, qdot and joint force of all modes: finite exactly when the new state
+        is (the caller's one check), otherwise the caller restores its copy of the state.
+
     Notes
     -----
-    The caller checks the result for finiteness and restores its copy of the state on failure.
+    Sub-step k of every mode that has one runs before sub-step k+1 of any: the modes are
+    independent, and interleaving them lets the processor overlap their work.
     """
     n_modes = st.shape[0]
-    h = coef[0, 10]
-    for k in range(n_sub):
+    n_max = 0
+    for i in range(n_modes):
+        js[i, LOW] = js[i, DEPTH]
+        if n_sub[i] > n_max:
+            n_max = n_sub[i]
+    for k in range(n_max):
         for i in range(n_modes):
+            if k >= n_sub[i]:
+                continue
+            h = coef[i, 10]
             q0 = st[i, 0]
             v0 = st[i, 1]
             kt0 = js[i, KTAN] - jc[i, KT]
@@ -357,3 +371,7 @@ def advance(n_sub, coef, f, st, jc, js, stk, bk):
             st[i, 4] += st[i, 5] * h * 0.5 * (v0 * v0 + v1 * v1)
             st[i, 0] = q1
             st[i, 1] = v1
+    check = 0.0
+    for i in range(n_modes):
+        check += st[i, 0] + st[i, 1] + js[i, F_PREV]
+    return check
