@@ -568,3 +568,22 @@ def test_bundle_is_self_contained(fmus):
     for name, text in core.items():
         assert not re.search(r"^\s*(import|from)\s+jointfmu\b", text, re.M), name
     assert re.search(r"^numpy", req, re.M) and re.search(r"^scipy", req, re.M)
+
+
+def test_direct_feedthrough_outputs_see_inputs_before_a_step(slave_of, psets):
+    """Accelerations and the interface force depend directly on the inputs (FMI 2.0 sec. 2.2.8,
+    ModelStructure dependencies): set an input, read them, no doStep in between.  At rest the
+    modal acceleration is the modal force, so tip.a = sum_i phi_tip,i phi_shaker,i F and
+    base.force = F r_shaker - sum_i Gamma_i q_i'' (modal.py; Newton's second law)."""
+    ps = psets["tray_nominal"]
+    s = slave_of("tray_nominal")
+    s.init()
+    F = 7.0
+    s.set({"point.shaker.force": F})
+    shaker = next(p for p in ps.points if p.label == "shaker")
+    tip = next(p for p in ps.points if p.label == "tip")
+    qdd = np.array(shaker.shape) * F
+    gamma = np.array([m.base_participation for m in ps.modes])
+    got_a, got_base = s.get(["point.tip.a", "base.force"])
+    assert got_a == pytest.approx(float(np.dot(tip.shape, qdd)), rel=1e-12)
+    assert got_base == pytest.approx(F * shaker.base_factor - float(gamma @ qdd), rel=1e-12)

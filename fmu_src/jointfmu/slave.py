@@ -70,6 +70,8 @@ class JointSlave(Fmi2Slave):
         self._input_vrs = {kind: [k for k, v in enumerate(self._table) if v.kind == kind]
                            for kind in ("modal_force", "point_force", "base_acc")}
         self._sim = None
+        self._dirty = set(self._input_vrs)   # input kinds set since they were last pushed
+        self._out_cache: dict = {}           # output kind -> values, until the next change
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
         self._initialized = False
@@ -99,7 +101,17 @@ class JointSlave(Fmi2Slave):
             if sim is None:
                 return 0.0
             try:
-                value = getattr(sim, kind)
+                value = self._out_cache.get(kind)
+                if value is None:
+                    # outputs with direct feedthrough (accelerations, base force) see inputs set
+                    # since the last step; an invalid one (refused, and reported, at doStep)
+                    # leaves them at the last valid inputs
+                    if self._dirty:
+                        try:
+                            self._push_inputs()
+                        except JointFmuError:
+                            pass
+                    value = self._out_cache[kind] = getattr(sim, kind)
                 return float(value if index is None else value[index])
             except Exception:       # never raise into the C wrapper
                 return math.nan
@@ -119,6 +131,9 @@ class JointSlave(Fmi2Slave):
                      Fmi2Status.error)
             return
         self._values[vr] = float(value)
+        if var.kind in self._input_vrs:
+            self._dirty.add(var.kind)
+            self._out_cache.clear()
 
     # ------------------------------------------------------------------------- life cycle
     def exit_initialization_mode(self):
@@ -141,6 +156,7 @@ class JointSlave(Fmi2Slave):
                          f"{exc}", Fmi2Status.error)
                 return False
             ok, message = self._sim.step(step_size)
+            self._out_cache.clear()
             if not ok:
                 self.log(f"step from t = {current_time!r} s by {step_size!r} s failed, state kept: "
                          f"{message}", Fmi2Status.error)
@@ -152,23 +168,26 @@ class JointSlave(Fmi2Slave):
             return False
 
     def _push_inputs(self) -> None:
-        import numpy as np
-
+        """Hand the input groups set since the last push to the simulator."""
+        if not self._dirty:
+            return
         vals = self._values
-        for kind in ("modal_force", "point_force", "base_acc"):
+        for kind in self._dirty:
             for k in self._input_vrs[kind]:
                 if not math.isfinite(vals[k]):
                     # named by its FMU variable; the core repeats the check in its own terms
                     raise InputError(f"input {self._table[k].name} = {vals[k]!r} "
                                      f"[{self._table[k].unit}]: allowed are finite values")
         kwargs = {}
-        if self._input_vrs["modal_force"]:
-            kwargs["modal_forces"] = np.array([vals[k] for k in self._input_vrs["modal_force"]])
-        if self._input_vrs["point_force"]:
-            kwargs["point_forces"] = np.array([vals[k] for k in self._input_vrs["point_force"]])
-        if self._input_vrs["base_acc"]:
-            kwargs["base_acc"] = float(vals[self._input_vrs["base_acc"][0]])
+        vrs = self._input_vrs
+        if vrs["modal_force"] and "modal_force" in self._dirty:
+            kwargs["modal_forces"] = [vals[k] for k in vrs["modal_force"]]
+        if vrs["point_force"] and "point_force" in self._dirty:
+            kwargs["point_forces"] = [vals[k] for k in vrs["point_force"]]
+        if vrs["base_acc"] and "base_acc" in self._dirty:
+            kwargs["base_acc"] = float(vals[vrs["base_acc"][0]])
         self._sim.set_inputs(**kwargs)
+        self._dirty.clear()
 
     def _current_settings(self):
         return (tuple(self._values[k] for k in self._param_vrs), self._values[self._steps_vr])
@@ -183,6 +202,8 @@ class JointSlave(Fmi2Slave):
             return False
         self._active = settings
         self._sim = None
+        self._dirty = set(self._input_vrs)   # a new simulator starts from zero inputs
+        self._out_cache.clear()
         try:
             params = self._effective_params()
             from .integrate import ModalSimulator  # its range check names steps_per_period
@@ -245,6 +266,7 @@ class JointSlave(Fmi2Slave):
         if self._ensure_simulator():
             try:
                 self._sim.set_state(base64.b64decode(data["core"]))
+                self._dirty, self._out_cache = set(), {}   # the state holds its inputs
             except Exception as exc:
                 self._sim, self._active = None, None
                 self.log(f"FMU state could not be restored: {exc}", Fmi2Status.error)

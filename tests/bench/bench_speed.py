@@ -132,9 +132,9 @@ def excited(params, kernel="auto", **kw):
 
 def ns_per_mode_step(sim, seconds: float, repeats: int) -> float:
     """Wall time of ``sim.step(seconds)`` per mode and internal step [ns] (state advances)."""
-    n_sub = int(np.ceil(seconds / sim.h_max * (1 - 1e-12)))
+    mode_steps = int(sim.sub_steps(seconds).sum())  # each mode sub-steps at its own frequency
     t = best(lambda: sim.step(seconds), repeats)
-    return t / (n_sub * sim.model.n_modes) * 1e9
+    return t / mode_steps * 1e9
 
 
 # ------------------------------------------------------------------------------- sections
@@ -172,14 +172,14 @@ def bench_scaling(quick):
         sim = excited(p10, steps_per_period=s)
         ns = ns_per_mode_step(sim, 0.02 if quick else 0.05, rep)
         spp[s] = {"ns_per_mode_step": ns,
-                  "us_per_simulated_ms": ns * 10 * (1e-3 / sim.h_max) * 1e-3}
+                  "us_per_simulated_ms": ns * int(sim.sub_steps(1e-3).sum()) * 1e-3}
     # a long ring-down in chunks: cost per chunk against the deepest stack (merge_tol default)
     sim = excited(p10)
     chunk = 0.25 if quick else 0.5
     depth = []
     for k in range(8 if quick else 20):
         # five pieces, the fastest counts (least disturbed by other processes)
-        n_sub = int(np.ceil(chunk / 5 / sim.h_max * (1 - 1e-12)))
+        mode_steps = int(sim.sub_steps(chunk / 5).sum())
         el = np.inf
         for _ in range(5):
             t = time.perf_counter()
@@ -188,7 +188,7 @@ def bench_scaling(quick):
         depth.append({"t_end_s": round(sim.time, 3), "max_depth": int(sim.stack_depth.max()),
                       "mean_depth": float(sim.stack_depth.mean()),
                       "merges": int(sim.merges[0].sum()), "forced_merges": int(sim.merges[1].sum()),
-                      "ns_per_mode_step": el / (n_sub * 10) * 1e9})
+                      "ns_per_mode_step": el / mode_steps * 1e9})
     # a stack that fills (merge_tol 0, small capacity): every push then costs a forced merge,
     # which scans the whole stack
     sim = excited(p10, merge_tol=0.0, stack_capacity=512)
@@ -307,9 +307,8 @@ def bench_fmu(params, work: Path, quick):
             sim.set_inputs(point_forces=[drive * np.sin(0.2 * k)], modal_forces=f)
             sim.step(1e-3)
     res["core_us_per_step"] = best(core, rep) / n * 1e6
-    n_sub = int(np.ceil(1e-3 / sim.h_max * (1 - 1e-12)))
     res["core_kernel_us_per_step"] = None  # filled by main from the kernel ns
-    res["n_sub_per_step"] = n_sub
+    res["mode_steps_per_step"] = int(sim.sub_steps(1e-3).sum())
     # memory over many FMU steps
     m_steps = 20000 if quick else 100000
     loop = _loop(s, typ_in, typ_out, m_steps // 10, amp=[drive])
@@ -428,7 +427,7 @@ def bench_reference(params, quick):
     # tightest rtol still at least as inaccurate as the core
     worse = [r for r in sweep if r["error"] >= e_core]
     chosen = min(worse, key=lambda r: r["rtol"]) if worse else max(sweep, key=lambda r: r["rtol"])
-    n_mode_steps = (len(t) - 1) * math.ceil(dt / sim.h_max * (1 - 1e-12)) * params.n_modes
+    n_mode_steps = (len(t) - 1) * int(sim.sub_steps(dt).sum())
     return {"T_s": T, "core_seconds": t_core, "core_error": e_core, "sweep": sweep,
             "chosen_seconds": chosen["seconds"], "n_mode_steps": n_mode_steps,
             "chosen_rtol": chosen["rtol"], "core_at_least_as_accurate": bool(worse),
@@ -508,7 +507,7 @@ def main(argv=None) -> int:
           f"{fs_['ns_per_mode_step']:.1f} ns per mode-step")
 
     fm, fmu_path = bench_fmu(params, work, quick)
-    print(f"\nFMU through fmpy FMU2Slave, 1 ms step ({fm['n_sub_per_step']} internal steps), "
+    print(f"\nFMU through fmpy FMU2Slave, 1 ms step ({fm['mode_steps_per_step']} mode-steps), "
           f"{fm['n_inputs']} inputs, {fm['n_outputs']} outputs; built in {fm['build_s']:.2f} s")
     print("  case                 ours [us/step]  realtime x  empty slave [us]  doStep only: "
           "ours  empty")
@@ -517,7 +516,7 @@ def main(argv=None) -> int:
         print(f"  {name:20s} {c['us_per_step']:14.1f}  {c['realtime_factor']:10.0f}  "
               f"{c['empty_us_per_step']:16.1f}  {c['doStep_only_us']:17.1f}  "
               f"{c['empty_doStep_only_us']:5.1f}")
-    kern_us = k["kernel_ns_per_mode_step"] * fm["n_sub_per_step"] * 10 * 1e-3
+    kern_us = k["kernel_ns_per_mode_step"] * fm["mode_steps_per_step"] * 1e-3
     print(f"  core alone (set_inputs + step): {fm['core_us_per_step']:.1f} us per step, of which "
           f"the kernel about {kern_us:.1f} us")
     si = bench_slave_internals(params, fmu_path, quick)
