@@ -182,3 +182,18 @@ def test_demo_bad_params_file_fails_cleanly(tmp_path, capsys):
     assert rc == 1
     assert "bad.toml" in capsys.readouterr().err
     assert not (tmp_path / "d" / "fmus").exists()
+
+
+@pytest.mark.parametrize("argv,match", [
+    (["--scheduler", "localhost:8786"], "allowed is a Dask scheduler address"),
+    (["--scheduler", "tcp://127.0.0.1:1"], "cannot reach the Dask scheduler"),
+])
+def test_demo_bad_scheduler_fails_before_writing(tmp_path, capsys, argv, match, monkeypatch):
+    import jointfmu.sweep as sw
+
+    real = sw.dask_client
+    monkeypatch.setattr(sw, "dask_client", lambda s=None, n=2: real(s, n, timeout=1.0))
+    rc = main(["demo", "--quick", "--out", str(tmp_path / "d"), "--no-progress", *argv])
+    assert rc == 1
+    assert match in capsys.readouterr().err
+    assert not (tmp_path / "d").exists()

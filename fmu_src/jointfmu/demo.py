@@ -253,11 +253,13 @@ def cmd_sweep(args) -> int:
     from .sweep import raise_failures, run_tasks
 
     files = [Path(p) for p in args.params]
+    # every input checked before anything is written
     _check_files(files)
+    cases, modes, settings = _cases(args.cases), _controller_modes(args.controller), _settings(args)
+    _check_scheduler(args.scheduler)
     out = Path(args.out)
     builds = _build_all(files, out / "fmus")
-    tasks = _sweep_tasks(builds, _cases(args.cases), _controller_modes(args.controller),
-                         _settings(args), out / "histories", args.quick)
+    tasks = _sweep_tasks(builds, cases, modes, settings, out / "histories", args.quick)
     res = run_tasks(tasks, out / "results.parquet", executor="loop" if args.loop else "dask",
                     scheduler=args.scheduler, n_workers=args.workers,
                     progress=not args.no_progress)
@@ -267,6 +269,12 @@ def cmd_sweep(args) -> int:
     raise_failures(res)
     print(CAUTION)
     return 0
+
+
+def _check_scheduler(address) -> None:
+    if address is not None and (not isinstance(address, str) or "://" not in address):
+        raise InputError(f"--scheduler {address!r}: allowed is a Dask scheduler address such as "
+                         "tcp://host:8786")
 
 
 def _check_files(files: Sequence[Path]) -> None:
@@ -659,6 +667,7 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     log(CAUTION)
     # 1. check
     step("check")
+    _check_scheduler(scheduler)
     files = [Path(f) for f in param_files]
     _check_files(files)
     psets = [load_parameter_set(f) for f in files]
@@ -668,16 +677,16 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
                          f"(got {builds_seen})")
     done("check")
     log(f"[1/6] check      {len(files)} parameter sets OK ({', '.join(p.set_id for p in psets)})")
-    # 2. build
-    step("build")
-    builds = _build_all(files, out / "fmus")
-    for (_, fmu) in builds:
-        paths[f"fmu:{fmu.stem}"] = fmu
-    done("build")
-    log(f"[2/6] build      {len(builds)} FMUs in {out / 'fmus'}")
-
+    # the cluster first: an unreachable scheduler fails before anything is written
     ctx = nullcontext(client) if client is not None else dask_client(scheduler, n_workers)
     with ctx as c:
+        # 2. build
+        step("build")
+        builds = _build_all(files, out / "fmus")
+        for (_, fmu) in builds:
+            paths[f"fmu:{fmu.stem}"] = fmu
+        done("build")
+        log(f"[2/6] build      {len(builds)} FMUs in {out / 'fmus'}")
         # 3. report
         step("report")
         import importlib.util
