@@ -13,12 +13,14 @@ other components at every communication step:
   box foot, commanded from the relative velocity sensed at that foot (collocated velocity
   feedback), through a first-order actuator lag, force-limited.
 
-Why the loads model and the controller are plain Python components, not FMUs of their own: they
-are a few lines each, they must be seeded and bit-reproducible, and pythonfmu adds per-step
-overhead and its own process-wide module sharing; the structure is the part that has to "drop
-into any FMI-capable simulator", and it does so here through fmpy, stepped exactly like an FMI
-master would step it.  Each component keeps the co-simulation contract (inputs held over a step,
-outputs read at communication points), so either could become an FMU without changing the loop.
+Why the loads model and the controller are plain Python components by default: they are a few
+lines each, they must be seeded and bit-reproducible, and as pythonfmu FMUs they roughly double
+the cost of a step (measured, ``tests/bench/bench_system.py``); the structure is the part that has
+to "drop into any FMI-capable simulator", and it does so here through fmpy, stepped exactly like
+an FMI master would step it.  Each component keeps the co-simulation contract (inputs held over a
+step, outputs read at communication points), and :mod:`.components` packages both as FMUs of
+their own: ``SystemSettings(components="fmu")`` runs the same system as three FMUs, with the same
+numbers bit for bit (tested).
 
 Coupling scheme (common practice for explicit co-simulation: Jacobi / parallel with zero-order
 hold): at each communication point ``t_k = k h`` every component's outputs are read, all inputs
