@@ -241,13 +241,13 @@ def test_failed_step_keeps_the_state(monkeypatch):
     sim.set_inputs(modal_forces=[-2.0 * pm * w2])   # will wipe out every loop
     state = sim.get_state()
     stack = sim._stk.copy()
-    real = sim._advance
+    real = sim._step_all
 
     def failing(*args):
         real(*args)
         raise FloatingPointError("injected")
 
-    monkeypatch.setattr(sim, "_advance", failing)
+    monkeypatch.setattr(sim, "_step_all", failing)
     ok, msg = sim.step(0.1)
     assert not ok and "injected" in msg and "state kept" in msg
     assert sim.get_state() == state

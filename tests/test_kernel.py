@@ -134,8 +134,8 @@ _PROBE = (
     "if info['kernel'] == 'numba':\n"
     "    from jointfmu import _compiled as C\n"
     "    info['file'] = str(C.CACHE_FILE)\n"
-    "    info['hits'] = sum(len(d.stats.cache_hits) for d in (C.advance, C.joint_move))\n"
-    "    info['misses'] = sum(len(d.stats.cache_misses) for d in (C.advance, C.joint_move))\n"
+    "    info['hits'] = sum(len(d.stats.cache_hits) for d in (C.step_all, C.refresh))\n"
+    "    info['misses'] = sum(len(d.stats.cache_misses) for d in (C.step_all, C.refresh))\n"
     "print(json.dumps(info))\n"
 )
 

@@ -49,7 +49,8 @@ import numpy as np
 
 from . import _kernel as _K
 
-__all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "CACHE_FILE", "cache_dir_candidates"]
+__all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "step_all", "refresh", "CACHE_FILE",
+           "cache_dir_candidates"]
 
 NAME = "numba"
 
@@ -155,10 +156,11 @@ def _load():
 
 
 def _self_check(mod) -> None:
-    """Compile (or load from cache) ``advance`` with the argument types the simulator uses, and
-    compare a short run with reversals, wiping-out and macro-slip against the plain-Python kernel.
+    """Compile (or load from cache) ``step_all`` and ``refresh`` with the argument types the
+    simulator uses, and compare a short run with reversals, wiping-out and macro-slip against the
+    plain-Python kernel.
 
-    Only ``advance`` is called (it contains every other function); each further entry point
+    Only these two are called (they contain every other function); each further entry point
     called here would cost one more cache load (about 0.05 s) at every start.  ``joint_move``
     and ``joint_set_virgin`` compile, or load from the cache, at their first call.
     """
@@ -200,10 +202,16 @@ def _self_check(mod) -> None:
             _K.joint_set_virgin(i, 0.0, jc, js)
         st[:, 5] = 0.1
         n_sub = np.array([3, 2], dtype=np.int64)
+        # inputs: no points, the two modal forces, base acceleration; one output point
+        mp = np.array([[0.5, -0.25, 1.0], [0.3, 0.1, 2.0]])
+        f = np.zeros(n)
+        y = np.zeros(4 * n + 3 + _K.Y_TAIL)
+        st_s, js_s = np.zeros_like(st), np.zeros_like(js)
         for k in range(150):
-            f = np.array([20.0, -40.0]) * np.sin(0.37 * k) * np.exp(-0.02 * k)
-            kern.advance(n_sub, coef, f, st, jc, js, stk, bk)
-        results.append(np.concatenate([st.ravel(), js.ravel(), stk.ravel()]))
+            u = np.array([20.0, -40.0, 0.3]) * np.sin(0.37 * k) * np.exp(-0.02 * k)
+            kern.step_all(n_sub, coef, u, mp, st, jc, js, stk, bk, f, y, st_s, js_s)
+        kern.refresh(u * 0.5, mp, st, jc, js, f, y)
+        results.append(np.concatenate([st.ravel(), js.ravel(), stk.ravel(), y, st_s.ravel()]))
     if not np.array_equal(results[0], results[1]):
         raise ImportError("the compiled kernel disagrees with the plain-Python kernel on the "
                           "self-check; not used")
@@ -215,3 +223,5 @@ _self_check(_mod)
 advance = _mod.advance
 joint_move = _mod.joint_move
 joint_set_virgin = _mod.joint_set_virgin
+step_all = _mod.step_all
+refresh = _mod.refresh

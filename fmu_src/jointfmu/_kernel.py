@@ -375,3 +375,105 @@ def advance(n_sub, coef, f, st, jc, js, stk, bk):
     for i in range(n_modes):
         check += st[i, 0] + st[i, 1] + js[i, F_PREV]
     return check
+
+
+# Layout of the output vector ``y`` filled by :func:`outputs` (N modes, n_out output points):
+#   q (N), qdot (N), joint force (N), qddot (N), point x (n_out), v (n_out), a (n_out),
+#   base force, energy input, energy viscous, energy joint (dissipated), joint stored energy.
+Y_TAIL = 5
+
+
+def modal_inputs(u, mp, f):
+    """Held modal force from the input vector (modal.py gives the mapping and its sources).
+
+    ``u`` = [point forces (n_in), direct modal forces (N), base acceleration];
+    ``mp`` rows 0..n_in-1 and n_in..n_in+n_out-1 are the input and output points (mode shapes in
+    columns 0..N-1, base factor r in column N), its last row the base participation factors
+    (columns 0..N-1) and the total mass (column N).
+    f_i = sum_p phi_pi F_p + f_mod,i - Gamma_i a_b.
+    """
+    n_modes = f.shape[0]
+    n_in = u.shape[0] - n_modes - 1
+    last = mp.shape[0] - 1
+    a = u[n_in + n_modes]
+    for i in range(n_modes):
+        s = u[n_in + i] - mp[last, i] * a
+        for p in range(n_in):
+            s += mp[p, i] * u[p]
+        f[i] = s
+
+
+def outputs(u, mp, st, jc, js, f, y):
+    """Fill ``y`` (layout above) from the state and the held input; see modal.py for the physics.
+
+    Point x and v are relative to the base, a is absolute; the base force is the force the
+    structure exerts on its mounting, sum_p r_p F_p - M a_b - sum_i Gamma_i q_i''.
+    """
+    n_modes = f.shape[0]
+    n_in = u.shape[0] - n_modes - 1
+    last = mp.shape[0] - 1
+    n_out = last - n_in
+    a = u[n_in + n_modes]
+    base = -mp[last, n_modes] * a
+    for p in range(n_in):
+        base += mp[p, n_modes] * u[p]
+    e_in = 0.0
+    e_visc = 0.0
+    e_joint = 0.0
+    e_stored = 0.0
+    for i in range(n_modes):
+        q = st[i, 0]
+        v = st[i, 1]
+        fj = js[i, F_PREV]
+        acc = f[i] - st[i, 5] * v - jc[i, KINF] * q - fj
+        y[i] = q
+        y[n_modes + i] = v
+        y[2 * n_modes + i] = fj
+        y[3 * n_modes + i] = acc
+        base -= mp[last, i] * acc
+        e_in += st[i, 3]
+        e_visc += st[i, 4]
+        e_joint += js[i, D_PREV]
+        e_stored += js[i, E_PREV]
+    o = 4 * n_modes
+    for k in range(n_out):
+        row = n_in + k
+        x = 0.0
+        vv = 0.0
+        aa = mp[row, n_modes] * a
+        for i in range(n_modes):
+            x += mp[row, i] * y[i]
+            vv += mp[row, i] * y[n_modes + i]
+            aa += mp[row, i] * y[3 * n_modes + i]
+        y[o + k] = x
+        y[o + n_out + k] = vv
+        y[o + 2 * n_out + k] = aa
+    t = o + 3 * n_out
+    y[t] = base
+    y[t + 1] = e_in
+    y[t + 2] = e_visc
+    y[t + 3] = e_joint
+    y[t + 4] = e_stored
+
+
+def step_all(n_sub, coef, u, mp, st, jc, js, stk, bk, f, y, st_saved, js_saved):
+    """One caller's step: modal force from the inputs, :func:`advance`, then the outputs.
+
+    ``st`` and ``js`` are first copied to ``st_saved`` and ``js_saved`` (with ``bk``, what the
+    caller needs to undo the step).  Returns the finiteness check value of :func:`advance`.
+    """
+    for i in range(st.shape[0]):
+        for j in range(st.shape[1]):
+            st_saved[i, j] = st[i, j]
+        for j in range(js.shape[1]):
+            js_saved[i, j] = js[i, j]
+    modal_inputs(u, mp, f)
+    check = advance(n_sub, coef, f, st, jc, js, stk, bk)
+    outputs(u, mp, st, jc, js, f, y)
+    return check
+
+
+def refresh(u, mp, st, jc, js, f, y):
+    """Modal force and outputs after the inputs changed (no time passes)."""
+    modal_inputs(u, mp, f)
+    outputs(u, mp, st, jc, js, f, y)

@@ -53,7 +53,7 @@ DEFAULT_STACK_CAPACITY = 4096
 #: Largest magnitude accepted for an input (keeps every intermediate value finite).
 MAX_INPUT = 1e12
 
-_STATE_VERSION = 1
+_STATE_VERSION = 2
 
 
 def _joint_constants(model: ModalModel, merge_tol: float) -> np.ndarray:
@@ -148,7 +148,7 @@ def kernel_info() -> dict:
 
 
 def _select_kernel(kernel: str):
-    """Return ``(advance, joint_move, name)`` for the requested kernel.
+    """Return ``(module, name)`` of the requested kernel (``_kernel`` or the compiled one).
 
     ``"auto"`` takes the compiled kernel when it loads and otherwise the plain-Python one, with a
     RuntimeWarning (once per process) that says why, unless ``JOINTFMU_KERNEL=python`` asked for
@@ -159,14 +159,14 @@ def _select_kernel(kernel: str):
     if kernel != "python":
         mod, reason = _load_compiled()
         if mod is not None:
-            return mod.advance, mod.joint_move, mod.NAME
+            return mod, mod.NAME
         if kernel == "compiled":
             raise InputError(f"kernel = 'compiled' requested but not available: {reason}")
         if len(_COMPILED) == 1 and "JOINTFMU_KERNEL=python" not in reason:
             _COMPILED.append(True)  # warned
             warnings.warn(f"jointfmu: using the plain-Python joint kernel (10-100x slower): {reason}",
                           RuntimeWarning, stacklevel=3)
-    return K.advance, K.joint_move, "python"
+    return K, "python"
 
 
 class ModalSimulator:
@@ -214,7 +214,8 @@ class ModalSimulator:
         self.model = ModalModel.from_params(params)
         self.steps_per_period = spp
         self.merge_tol = float(merge_tol)
-        self._advance, self._joint_move, self.kernel = _select_kernel(kernel)
+        kern, self.kernel = _select_kernel(kernel)
+        self._step_all, self._refresh = kern.step_all, kern.refresh
         n = self.model.n_modes
         # each mode's longest sub-step, from its own frequency
         self._h_mode = 2.0 * math.pi / (spp * self.model.omega0)
@@ -230,10 +231,29 @@ class ModalSimulator:
         self._bk = np.zeros((n, self._cap, 3))
         self._st_saved = np.zeros_like(self._st)
         self._js_saved = np.zeros_like(self._js)
-        self._f_point = np.zeros(len(self.model.input_labels))
-        self._f_modal = np.zeros(n)
-        self._a_base = 0.0
-        self._f = np.zeros(n)  # the held modal force, kept in step with the inputs
+        m = self.model
+        self._n_in, self._n_out = len(m.input_labels), len(m.output_labels)
+        # inputs [point forces, modal forces, base acceleration] and the kernel's mapping table
+        # (see _kernel.modal_inputs), outputs in the layout of _kernel.outputs
+        self._u = np.zeros(self._n_in + n + 1)
+        self._mp = np.zeros((self._n_in + self._n_out + 1, n + 1))
+        self._mp[: self._n_in, :n] = m.phi_in
+        self._mp[: self._n_in, n] = m.r_in
+        self._mp[self._n_in: -1, :n] = m.phi_out
+        self._mp[self._n_in: -1, n] = m.r_out
+        self._mp[-1, :n] = m.gamma
+        self._mp[-1, n] = m.total_mass
+        self._f = np.zeros(n)
+        self._y = np.zeros(4 * n + 3 * self._n_out + K.Y_TAIL)
+        o = 4 * n
+        self._slices = {
+            "q": slice(0, n), "qdot": slice(n, 2 * n), "joint_force": slice(2 * n, 3 * n),
+            "qddot": slice(3 * n, o), "point_x": slice(o, o + self._n_out),
+            "point_v": slice(o + self._n_out, o + 2 * self._n_out),
+            "point_a": slice(o + 2 * self._n_out, o + 3 * self._n_out),
+        }
+        self._tail = o + 3 * self._n_out
+        self._fresh = False  # y and f agree with the state and the inputs
         self.time = 0.0
         self.reset()
 
@@ -259,10 +279,8 @@ class ModalSimulator:
         self._stk[:] = 0.0
         for i in range(n):
             K.joint_set_virgin(i, float(self._q0[i]), self._jc, self._js)
-        self._f_point = np.zeros(len(self.model.input_labels))
-        self._f_modal = np.zeros(n)
-        self._a_base = 0.0
-        self._f = np.zeros(n)
+        self._u[:] = 0.0
+        self._fresh = False
         self._e0 = float(self.kinetic_potential_energy.sum() + self._js[:, K.E_PREV].sum())
 
     def set_inputs(self, point_forces=None, modal_forces=None, base_acc=None) -> None:
@@ -282,37 +300,45 @@ class ModalSimulator:
         InputError
             Wrong shape, non-finite or out-of-range value; nothing is changed then.
         """
-        new_p = self._checked(point_forces, self._f_point, "point_forces", self.model.input_labels)
-        new_m = self._checked(modal_forces, self._f_modal, "modal_forces", self.model.mode_labels)
-        a = self._a_base
+        new_p = self._checked(point_forces, "point_forces", self.model.input_labels)
+        new_m = self._checked(modal_forces, "modal_forces", self.model.mode_labels)
         if base_acc is not None:
             a = float(base_acc)
             if not self.model.has_base and a != 0.0:
                 raise InputError("base_acc: this structure has no [base] mounting; only 0 is allowed")
             if not (math.isfinite(a) and abs(a) <= MAX_INPUT):
                 raise InputError(f"base_acc = {base_acc!r}: must be finite with |value| <= {MAX_INPUT:g} m/s^2")
-        if new_p is self._f_point and new_m is self._f_modal and a == self._a_base:
-            return
-        self._f_point, self._f_modal, self._a_base = new_p, new_m, a
-        self._f = self.model.modal_force(new_p, new_m, a)
+            self._u[-1] = a
+        n_in = self._n_in
+        if new_p is not None:
+            self._u[:n_in] = new_p
+        if new_m is not None:
+            self._u[n_in:-1] = new_m
+        self._fresh = False
 
     @staticmethod
-    def _checked(value, current, name, labels):
-        """``value`` as a new float array shaped like ``current``, or ``current`` if None."""
+    def _checked(value, name, labels):
+        """``value`` as a list of floats, one per label, checked; None stays None."""
         if value is None:
-            return current
+            return None
         try:
             values = [float(x) for x in value]
         except TypeError:
             values = [float(value)]
-        if len(values) != current.shape[0]:
+        if len(values) != len(labels):
             raise InputError(
-                f"{name}: expected {current.shape[0]} values ({', '.join(labels) or 'none'}), got {len(values)}"
+                f"{name}: expected {len(labels)} values ({', '.join(labels) or 'none'}), got {len(values)}"
             )
         for j, x in enumerate(values):
             if not (math.isfinite(x) and abs(x) <= MAX_INPUT):
                 raise InputError(f"{name}[{labels[j]}] = {x!r}: must be finite with |value| <= {MAX_INPUT:g}")
-        return np.array(values)
+        return values
+
+    def _update(self) -> None:
+        """Bring the modal force and the outputs in line with the inputs (no time passes)."""
+        if not self._fresh:
+            self._refresh(self._u, self._mp, self._st, self._jc, self._js, self._f, self._y)
+            self._fresh = True
 
     # -- stepping ----------------------------------------------------------------------------
     def sub_steps(self, dt: float) -> np.ndarray:
@@ -333,6 +359,7 @@ class ModalSimulator:
     @property
     def modal_force(self) -> np.ndarray:
         """The held modal force, shape (N,) [N/sqrt(kg)]."""
+        self._update()
         return self._f.copy()
 
     def step(self, dt: float) -> tuple[bool, str]:
@@ -346,11 +373,11 @@ class ModalSimulator:
         if dt == 0.0:
             return True, ""
         n_sub, coef = self._plan(dt)
-        np.copyto(self._st_saved, self._st)
-        np.copyto(self._js_saved, self._js)
         try:
-            check = self._advance(n_sub, coef, self._f, self._st, self._jc, self._js, self._stk, self._bk)
+            check = self._step_all(n_sub, coef, self._u, self._mp, self._st, self._jc, self._js,
+                                   self._stk, self._bk, self._f, self._y, self._st_saved, self._js_saved)
             ok = math.isfinite(check)
+            self._fresh = ok
             message = "" if ok else "the step produced a non-finite state"
         except Exception as exc:  # noqa: BLE001 - reported, never thrown across the FMI boundary
             ok, message = False, f"the step failed: {exc}"
@@ -367,8 +394,13 @@ class ModalSimulator:
             if low < d0:
                 self._stk[i, low:d0] = self._bk[i, low:d0]
         self._st[:], self._js[:] = self._st_saved, js
+        self._fresh = False
 
     # -- outputs -----------------------------------------------------------------------------
+    def _out(self, name: str) -> np.ndarray:
+        self._update()
+        return self._y[self._slices[name]].copy()
+
     @property
     def q(self) -> np.ndarray:
         """Modal displacements, shape (N,) [m sqrt(kg)]."""
@@ -387,48 +419,52 @@ class ModalSimulator:
     @property
     def qddot(self) -> np.ndarray:
         """Modal accelerations with the held input, shape (N,) [m sqrt(kg)/s^2]."""
-        m = self.model
-        return self._f - self._st[:, 5] * self._st[:, 1] - m.Kinf * self._st[:, 0] - self._js[:, K.F_PREV]
+        return self._out("qddot")
 
     @property
     def point_x(self) -> np.ndarray:
         """Displacement at the output points relative to the base, shape (n_out,) [m]."""
-        return self.model.phi_out @ self._st[:, 0]
+        return self._out("point_x")
 
     @property
     def point_v(self) -> np.ndarray:
         """Velocity at the output points relative to the base, shape (n_out,) [m/s]."""
-        return self.model.phi_out @ self._st[:, 1]
+        return self._out("point_v")
 
     @property
     def point_a(self) -> np.ndarray:
         """Absolute acceleration at the output points, shape (n_out,) [m/s^2]."""
-        return self.model.phi_out @ self.qddot + self.model.r_out * self._a_base
+        return self._out("point_a")
 
     @property
     def base_force(self) -> float:
         """Force the structure exerts on its mounting along the base direction [N]."""
-        return float(self.model.base_force(self.qddot, self._f_point, self._a_base))
+        self._update()
+        return float(self._y[self._tail])
 
     @property
     def energy_input(self) -> float:
         """Work done by the inputs since the start, in the base frame [J]."""
-        return float(self._st[:, 3].sum())
+        self._update()
+        return float(self._y[self._tail + 1])
 
     @property
     def energy_viscous(self) -> float:
         """Energy dissipated by viscous damping since the start [J]."""
-        return float(self._st[:, 4].sum())
+        self._update()
+        return float(self._y[self._tail + 2])
 
     @property
     def energy_joint(self) -> float:
         """Energy dissipated by the joints (micro- and macro-slip) since the start [J]."""
-        return float(self._js[:, K.D_PREV].sum())
+        self._update()
+        return float(self._y[self._tail + 3])
 
     @property
     def energy_joint_stored(self) -> float:
         """Elastic energy held in the joints' springs now [J]."""
-        return float(self._js[:, K.E_PREV].sum())
+        self._update()
+        return float(self._y[self._tail + 4])
 
     @property
     def kinetic_potential_energy(self) -> np.ndarray:
@@ -464,9 +500,7 @@ class ModalSimulator:
             st=self._st,
             js=self._js,
             stk=self._stk[:, :depth],
-            f_point=self._f_point,
-            f_modal=self._f_modal,
-            a_base=np.array(self._a_base),
+            u=self._u,
             e0=np.array(self._e0),
         )
         return buf.getvalue()
@@ -478,7 +512,8 @@ class ModalSimulator:
                 parts = {k: z[k] for k in z.files}
         except Exception as exc:  # noqa: BLE001
             raise InputError(f"FMU state: not a jointfmu state ({exc})") from exc
-        if int(parts.get("version", -1)) != _STATE_VERSION or parts["st"].shape != self._st.shape:
+        if (int(parts.get("version", -1)) != _STATE_VERSION or parts["st"].shape != self._st.shape
+                or parts["u"].shape != self._u.shape):
             raise InputError("FMU state: made by another structure or version of jointfmu")
         depth = parts["stk"].shape[1]
         if depth > self._cap:
@@ -486,9 +521,7 @@ class ModalSimulator:
         self._st[:] = parts["st"]
         self._js[:] = parts["js"]
         self._stk[:, :depth] = parts["stk"]
-        self._f_point = parts["f_point"].copy()
-        self._f_modal = parts["f_modal"].copy()
-        self._a_base = float(parts["a_base"])
-        self._f = self.model.modal_force(self._f_point, self._f_modal, self._a_base)
+        self._u[:] = parts["u"]
+        self._fresh = False
         self._e0 = float(parts["e0"])
         self.time = float(parts["time"])

@@ -72,6 +72,7 @@ class JointSlave(Fmi2Slave):
         self._sim = None
         self._dirty = set(self._input_vrs)   # input kinds set since they were last pushed
         self._out_cache: dict = {}           # output kind -> values, until the next change
+        self._settings_changed = True        # a parameter was set since the last check
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
         self._initialized = False
@@ -131,7 +132,9 @@ class JointSlave(Fmi2Slave):
                      Fmi2Status.error)
             return
         self._values[vr] = float(value)
-        if var.kind in self._input_vrs:
+        if var.is_parameter:
+            self._settings_changed = True
+        elif var.kind in self._input_vrs:
             self._dirty.add(var.kind)
             self._out_cache.clear()
 
@@ -195,6 +198,9 @@ class JointSlave(Fmi2Slave):
     def _ensure_simulator(self) -> bool:
         """Build the simulator for the current parameter values; False (and a logged error) if
         they are out of range."""
+        if self._sim is not None and not self._settings_changed:
+            return True
+        self._settings_changed = False
         settings = self._current_settings()
         if self._sim is not None and settings == self._active:
             return True
@@ -258,6 +264,7 @@ class JointSlave(Fmi2Slave):
             self.log(f"FMU state rejected, current state kept: {exc}", Fmi2Status.error)
             return
         self._values = [None if v is None else float(v) for v in values]
+        self._settings_changed = True
         self._initialized = bool(data["initialized"])
         if data["core"] is None:            # saved before the simulator existed
             self._sim, self._active, self._init_error = None, None, None
