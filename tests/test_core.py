@@ -302,3 +302,32 @@ def test_point_outputs_and_base_force():
         sim.step(0.01)
     assert sim.base_force == pytest.approx(-2.0 * 9.81, rel=1e-6)
     assert sim.point_a[0] == pytest.approx(9.81, rel=1e-6)   # absolute: moves with the base
+
+
+def test_outputs_follow_the_modal_mapping_while_moving():
+    """During a forced response with base motion, every output equals the modal formulas written
+    out here with NumPy (modal.py's docstring; Craig and Kurdila 2006, ch. 10-11):
+    x = Phi_o q, v = Phi_o q', a = Phi_o q'' + r_o a_b, q'' = f - c q' - Kinf q - F_J,
+    f = Phi_i^T F + f_mod - Gamma a_b, F_base = r_i . F - M a_b - Gamma . q''."""
+    pts = [{"label": "drive", "role": "input", "direction": "+z", "shape": [0.4, -0.3], "base_factor": 0.8},
+           {"label": "s1", "role": "output", "direction": "+z", "shape": [0.2, 0.5], "base_factor": 1.0},
+           {"label": "s2", "role": "both", "direction": "+x", "shape": [-0.1, 0.25], "base_factor": 0.0}]
+    ps = make_set([(40.0, 0.01, 0.2, 0.5, -0.5, 0.1), (95.0, 0.01, 0.2, 0.5, -0.4, 0.2)], base_mass=1.5,
+                  points=pts)
+    sim = ModalSimulator(ps, kernel="python")
+    m = sim.model
+    for k in range(60):
+        F = np.array([3.0 * math.sin(0.3 * k), -2.0 * math.cos(0.2 * k)])
+        fm = np.array([0.1 * k % 0.7, -0.05])
+        ab = 4.0 * math.sin(0.11 * k)
+        sim.set_inputs(point_forces=F, modal_forces=fm, base_acc=ab)
+        sim.step(1e-3)
+    f = m.phi_in.T @ F + fm - m.gamma * ab
+    qdd = f - 2 * m.zeta * m.omega0 * sim.qdot - m.Kinf * sim.q - sim.joint_force
+    assert np.allclose(sim.modal_force, f, rtol=1e-13, atol=0)
+    assert np.allclose(sim.qddot, qdd, rtol=1e-12, atol=1e-12 * np.abs(qdd).max())
+    assert np.allclose(sim.point_x, m.phi_out @ sim.q, rtol=1e-13)
+    assert np.allclose(sim.point_v, m.phi_out @ sim.qdot, rtol=1e-13)
+    assert np.allclose(sim.point_a, m.phi_out @ qdd + m.r_out * ab, rtol=1e-11)
+    assert sim.base_force == pytest.approx(m.r_in @ F - 1.5 * ab - m.gamma @ qdd, rel=1e-11)
+    assert sim.energy_joint > 0 and sim.energy_joint_stored > 0

@@ -21,6 +21,9 @@ and the interface force, the force the structure exerts on its mounting along th
 (Newton's second law for the whole structure; the residual mass M - sum Gamma_i^2 of the modes
 left out moves rigidly with the base).  Direct modal forces are taken as self-equilibrated: they
 have no resultant of their own on the base.
+
+The arrays are built here; the mapping itself is evaluated inside the compiled step
+(``_kernel.modal_inputs`` and ``_kernel.outputs``), so that one call does a whole caller's step.
 """
 from __future__ import annotations
 
@@ -115,44 +118,3 @@ class ModalModel:
     @property
     def n_modes(self) -> int:
         return int(self.omega0.shape[0])
-
-    def modal_force(self, point_forces=None, modal_forces=None, base_acc=0.0) -> np.ndarray:
-        """Modal force from physical inputs.
-
-        Parameters
-        ----------
-        point_forces : array_like, shape (..., n_in), optional
-            Forces at the input points along their directions [N].
-        modal_forces : array_like, shape (..., N), optional
-            Direct modal forces [N/sqrt(kg)].
-        base_acc : float or array_like, shape (...), optional
-            Base acceleration along the mounting direction [m/s^2].
-
-        Returns
-        -------
-        ndarray, shape (..., N)
-            Modal force [N/sqrt(kg)].
-        """
-        out = -np.multiply.outer(np.asarray(base_acc, dtype=float), self.gamma)
-        if point_forces is not None:
-            out = out + np.asarray(point_forces, dtype=float) @ self.phi_in
-        if modal_forces is not None:
-            out = out + np.asarray(modal_forces, dtype=float)
-        return out
-
-    def point_motion(self, q, qdot, qddot, base_acc=0.0):
-        """Displacement and velocity (relative) and acceleration (absolute) at the output points.
-
-        ``q``, ``qdot``, ``qddot`` have shape (..., N); returns three arrays of shape (..., n_out).
-        """
-        x = np.asarray(q) @ self.phi_out.T
-        v = np.asarray(qdot) @ self.phi_out.T
-        a = np.asarray(qddot) @ self.phi_out.T + np.multiply.outer(np.asarray(base_acc, float), self.r_out)
-        return x, v, a
-
-    def base_force(self, qddot, point_forces=None, base_acc=0.0):
-        """Force the structure exerts on its mounting, along the base direction [N]."""
-        f = -np.asarray(qddot) @ self.gamma - self.total_mass * np.asarray(base_acc, dtype=float)
-        if point_forces is not None:
-            f = f + np.asarray(point_forces, dtype=float) @ self.r_in
-        return f
