@@ -81,9 +81,10 @@ def _branch(x, jc, i):
             fbb = jc[i, KT] * x - jc[i, CF] * p
             dv = jc[i, CD] * x * p
             uv = 0.5 * jc[i, KT] * x * x - jc[i, CUV] * x * p
-            y = p / x  # x^(chi+1)
+            r = 1.0 / x
+            y = p * r  # x^(chi+1)
             kt = jc[i, KT] - jc[i, CK] * y
-            kc = -jc[i, CK] * (jc[i, E2] - 1.0) * y / x
+            kc = -jc[i, CK] * (jc[i, E2] - 1.0) * y * r
             return fbb, dv, uv, kt, kc
         return 0.0, 0.0, 0.0, jc[i, KT], 0.0
     return jc[i, FS], jc[i, DVPM] + jc[i, FS] * (x - jc[i, PHIMAX]), jc[i, UVPM], 0.0, 0.0
@@ -104,17 +105,19 @@ def _eval_at(i, u, jc, js, stk):
     """
     ur, fr, er, c = _root(i, js, stk)
     du = u - ur
-    x = abs(du) / c
+    half = c == 2.0
+    x = abs(du) * 0.5 if half else abs(du)  # |du| / c, exactly
     fbb, dv, uv, kt, kc = _branch(x, jc, i)
     s = 1.0 if du >= 0.0 else -1.0
     f = fr + s * c * fbb
     d = js[i, D_ACC] + c * dv
-    if c == 1.0:
-        e = uv
-    else:
+    if half:
         e = er + 0.5 * du * (f + fr)
+        js[i, KCURV] = kc * s * 0.5
+    else:
+        e = uv
+        js[i, KCURV] = kc * s
     js[i, KTAN] = kt
-    js[i, KCURV] = kc * s / c
     return f, d, e, kt
 
 
@@ -278,7 +281,7 @@ def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
     """
     dirn = 1.0 if v0 > 0.0 else -1.0
     ur, fr, er, c = _root(i, js, stk)
-    x0 = abs(q0 - ur) / c
+    x0 = abs(q0 - ur) * (0.5 if c == 2.0 else 1.0)  # |q0 - ur| / c, exactly
     if x0 >= jc[i, PHIMAX] or (q0 - ur) * dirn < 0.0:
         return q1, 0.0
     us = ur + dirn * c * jc[i, PHIMAX]
