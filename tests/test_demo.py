@@ -54,8 +54,8 @@ def test_demo_exits_zero_and_prints_summary_paths_and_caution(demo):
     rc, out, text = demo
     assert rc == 0, text
     assert CAUTION in text
-    for step in ("[1/6] check", "[2/6] build", "[3/6] report", "[4/6] sweep", "[5/6] page",
-                 "[6/6] linearize"):
+    for step in ("[1/6] check", "[2/6] build", "[3/6] report", "[4/6] sweep",
+                 "[5/6] linearize", "[6/6] page"):
         assert step in text
     assert str(out / "system" / "system.html") in text
     assert str(out / "system" / "results.parquet") in text
@@ -108,6 +108,7 @@ def test_system_page_tables_plots_and_caution(demo):
     _, out, _ = demo
     page = (out / "system" / "system.html").read_text()
     assert 'id="system-results"' in page and 'id="controller-benefit"' in page
+    assert 'id="linear-models"' in page and page.count("../linear/sn-") >= 3 * 4
     assert page.count("<tr>") >= N_BUILDS * N_CASES * 2 + N_BUILDS * N_CASES
     assert CAUTION in page
     assert 'href="../report/index.html"' in page and (out / "report" / "index.html").is_file()

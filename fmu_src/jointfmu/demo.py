@@ -7,10 +7,11 @@ Steps (each is also a command of its own):
 3. ``jointfmu report``     characterization report comparing the builds;
 4. ``jointfmu sweep``      every build x load case x controller off/on through the co-simulation
    system (:mod:`.system`) on Dask (:mod:`.sweep`); ``jointfmu cosim`` is one such run;
-5. system page           summary table and plots of the sweep (``system.html``);
-6. ``jointfmu linearize``  equivalent-linear models for the controls team at the amplitude that
+5. ``jointfmu linearize``  equivalent-linear models for the controls team at the amplitude that
    matters: per build, the sine-equivalent modal amplitudes (sqrt(2) x RMS of each mode) of the
-   load case with the largest RMS tip acceleration, controller off.
+   load case with the largest RMS tip acceleration, controller off;
+6. system page           summary tables and plots of the sweep and of the linear models
+   (``system/system.html``).
 
 The example data are invented (see examples/README.md).  A fitted model is no substitute for
 qualification testing; defer to the applicable codes, standards and licensed engineering
@@ -307,7 +308,7 @@ def _text_table(df, keys=None) -> str:
 
 # ------------------------------------------------------------------------- system page
 def write_system_page(table, out_dir, history_dir=None, title="System co-simulation",
-                      report_href: str | None = None) -> dict:
+                      report_href: str | None = None, linear_rows=None) -> dict:
     """Summary table and plots of a system sweep: ``system.html`` and PNGs in ``out_dir``.
 
     Parameters
@@ -319,6 +320,10 @@ def write_system_page(table, out_dir, history_dir=None, title="System co-simulat
         Folder of the runs' history files, for the time-history plot.
     report_href : str, optional
         Relative link to the characterization report of the same builds.
+    linear_rows : list of dict, optional
+        One per build and mode of the exported equivalent-linear models: ``build``, ``case``,
+        ``folder``, ``label``, ``modal_amplitude``, ``amplitude_over_phimax``,
+        ``frequency_hz``, ``zeta``.
 
     Returns
     -------
@@ -460,6 +465,24 @@ def write_system_page(table, out_dir, history_dir=None, title="System co-simulat
                    for k, p in paths.items() if k.startswith("fig_"))
     report_link = (f'<p>Characterization of the same builds: <a href="{e(report_href)}">'
                    'report</a>.</p>' if report_href else "")
+    lin_html = ""
+    if linear_rows:
+        lin_html = ("<h2>Equivalent-linear models for the controls team</h2>"
+                    "<p>Per build, at the sine-equivalent modal amplitudes (&radic;2 &times; RMS) "
+                    "of its worst load case (largest tip RMS, controller off); state space in "
+                    "each folder (model.npz, A.csv..D.csv, metadata.json). Valid near that "
+                    "amplitude and that kind of load only.</p>"
+                    '<table id="linear-models"><tr><th>build</th><th>load case</th><th>mode</th>'
+                    "<th>modal amplitude [m&radic;kg]</th><th>A / &phi;<sub>max</sub></th>"
+                    "<th>frequency [Hz]</th><th>&zeta;</th><th>folder</th></tr>"
+                    + "".join(
+                        f"<tr><td>{e(str(r['build']))}</td><td>{e(str(r['case']))}</td>"
+                        f"<td>{e(str(r.get('label', '')))}</td>"
+                        f"<td>{float(r['modal_amplitude']):.3g}</td>"
+                        f"<td>{float(r['amplitude_over_phimax']):.3f}</td>"
+                        f"<td>{float(r['frequency_hz']):.2f}</td><td>{float(r['zeta']):.4f}</td>"
+                        f"<td><code>{e(str(r['folder']))}</code></td></tr>"
+                        for r in linear_rows) + "</table>")
     case_rows = "".join(f"<tr><td>{e(lc.name)}</td><td>{e(lc.description)}</td></tr>"
                         for lc in LOAD_CASES.values() if lc.name in cases)
     text = f"""<!DOCTYPE html>
@@ -490,6 +513,7 @@ run through the same loop; the difference is in tip RMS and peak acceleration.</
 <h2>What the controller buys</h2>
 <table id="controller-benefit"><tr><th>build</th><th>case</th><th>tip RMS change [%]</th>
 <th>interface force peak change [%]</th></tr>{''.join(benefit)}</table>
+{lin_html}
 <h2>Plots</h2>
 {figs}
 <p>Worst case (largest tip RMS, controller off): {e(str(worst_case))}.
@@ -721,27 +745,32 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     done("three_fmus")
     log(f"[4/6] 3 FMUs     loads + controller FMUs in {out / 'fmus' / 'system'}; "
         f"{three['text']}")
-    # 5. system page
-    step("page")
-    pp = write_system_page(table, sys_dir, sys_dir / "histories",
-                           report_href="../report/index.html" if "report" in paths else None)
-    paths.update({f"system:{k}": v for k, v in pp.items()})
-    done("page")
-    log(f"[5/6] page       {pp['page']}")
-    # 6. linear models
+    # 5. linear models
     step("linearize")
     by_build = {p.build: p for p in psets}
     amps = amplitudes_that_matter(table, by_build)
     lin_lines = []
+    lin_rows = []
     for b, info in amps.items():
         ps = by_build[b]
         slug = "".join(ch if ch.isalnum() else "-" for ch in b).lower()
         d, how = export_linear(ps, info["amplitudes"], out / "linear" / slug, info["case"])
         paths[f"linear:{b}"] = d
+        meta = json.loads((Path(d) / "metadata.json").read_text(encoding="utf-8"))
+        for m in meta.get("modes", []):
+            lin_rows.append({"build": b, "case": info["case"], "folder": f"../linear/{slug}", **m})
         lin_lines.append(f"  {b:<12} at {info['case']:<15} amplitudes "
                          + ", ".join(f"{a:.3g}" for a in info["amplitudes"]) + f" -> {d}")
     done("linearize")
-    log(f"[6/6] linearize  {len(amps)} equivalent-linear models in {out / 'linear'}")
+    log(f"[5/6] linearize  {len(amps)} equivalent-linear models in {out / 'linear'}")
+    # 6. system page
+    step("page")
+    pp = write_system_page(table, sys_dir, sys_dir / "histories",
+                           report_href="../report/index.html" if "report" in paths else None,
+                           linear_rows=lin_rows)
+    paths.update({f"system:{k}": v for k, v in pp.items()})
+    done("page")
+    log(f"[6/6] page       {pp['page']}")
     total = time.perf_counter() - t_all
     text = "\n".join([
         "",
