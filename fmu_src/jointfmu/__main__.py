@@ -1,4 +1,4 @@
-"""``python -m jointfmu``: the command-line interface."""
-from .cli import main
+"""``python -m jointfmu``: the command line (see :mod:`jointfmu.cli`)."""
+from .cli import run
 
-raise SystemExit(main())
+run()

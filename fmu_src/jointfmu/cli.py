@@ -14,7 +14,7 @@ from . import __version__
 from .errors import JointFmuError
 from .params import check_parameter_file, load_parameter_set
 
-__all__ = ["main"]
+__all__ = ["main", "run"]
 
 
 # --- check -------------------------------------------------------------------------------------
@@ -314,3 +314,25 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("jointfmu: interrupted", file=sys.stderr)
         return 130
+
+
+def run() -> None:
+    """Console entry point: :func:`main`, then leave without interpreter teardown.
+
+    A process that has loaded a pythonfmu FMU can abort while the interpreter tears itself down
+    ("corrupted double-linked list", after all work and output are done; see DEVELOPERS.md), which
+    would turn a successful run into a failed exit code.  Everything is written and flushed by
+    then, so the process ends with ``os._exit`` and the command's own code.
+    """
+    import logging
+    import os
+
+    code = main()
+    logging.shutdown()
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.flush()
+        except Exception:  # noqa: BLE001 - a closed pipe must not change the exit code
+            pass
+    os._exit(code)
+
