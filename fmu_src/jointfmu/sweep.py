@@ -272,9 +272,9 @@ def run_tasks(tasks: Sequence[Task], table_path=None, *, executor: str = "dask",
         new = pd.DataFrame(rows) if rows else None
         if new is None:
             return old
-        if len(old) == 0:
-            return new.reset_index(drop=True)
-        return pd.concat([old, new], ignore_index=True)
+        both = new if len(old) == 0 else pd.concat([old, new], ignore_index=True)
+        # rows in key order, whatever order the workers finished in: the same file each time
+        return both.sort_values("key", kind="stable").reset_index(drop=True)
 
     def save(force=False):
         if path is None or not rows:
