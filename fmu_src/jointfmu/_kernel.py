@@ -121,6 +121,18 @@ def _eval_at(i, u, jc, js, stk):
     return f, d, e, kt
 
 
+def _backup_from(i, j0, js, stk, bk):
+    """Copy stack entries from ``j0`` up to the lowest depth reached so far in this step to
+    ``bk``, before they can be changed; ``js[i, LOW]`` then becomes ``j0`` (see _lower_depth)."""
+    low = int(js[i, LOW])
+    if j0 < low:
+        for j in range(j0, low):
+            bk[i, j, 0] = stk[i, j, 0]
+            bk[i, j, 1] = stk[i, j, 1]
+            bk[i, j, 2] = stk[i, j, 2]
+        js[i, LOW] = j0
+
+
 def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
     """Drop stack entries down to ``new_depth`` and keep the dissipation continuous at ``u``.
 
@@ -128,13 +140,7 @@ def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
     start of the step can be overwritten by a later push it is copied to ``bk``, so a failed step
     can be undone exactly (``js[i, LOW]`` is the lowest depth reached in this step).
     """
-    low = int(js[i, LOW])
-    if new_depth < low:
-        for j in range(new_depth, low):
-            bk[i, j, 0] = stk[i, j, 0]
-            bk[i, j, 1] = stk[i, j, 1]
-            bk[i, j, 2] = stk[i, j, 2]
-        js[i, LOW] = new_depth
+    _backup_from(i, new_depth, js, stk, bk)
     js[i, DEPTH] = new_depth
     ur, fr, er, c = _root(i, js, stk)
     x = abs(u - ur) / c
@@ -160,13 +166,7 @@ def _forced_merge(i, jc, js, stk, bk):
         if best_err < 0.0 or err < best_err:
             best_err = err
             best = k
-    low = int(js[i, LOW])
-    if best < low:
-        for j in range(best, low):
-            bk[i, j, 0] = stk[i, j, 0]
-            bk[i, j, 1] = stk[i, j, 1]
-            bk[i, j, 2] = stk[i, j, 2]
-        js[i, LOW] = best
+    _backup_from(i, best, js, stk, bk)
     for j in range(best, depth - 2):
         stk[i, j, 0] = stk[i, j + 2, 0]
         stk[i, j, 1] = stk[i, j + 2, 1]
