@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import csv
 import hashlib
-import io
 import json
 import math
 import os
@@ -42,6 +41,7 @@ from pathlib import Path
 from typing import Iterable, Mapping, Sequence
 from xml.etree import ElementTree as ET
 
+from ._files import atomic_write, publish
 from .errors import BuildError, InputError, JointFmuError, ParameterError, Problem
 from .params import (MODE_VALUE_NAMES, ParameterSet, _did_you_mean, check_mode_values,
                      load_parameter_set)
@@ -297,7 +297,7 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         os.close(fd)
         tmp_fmu = Path(tmp_name)
         _complete_fmu(raw, tmp_fmu, params, ident, core)
-        _publish(tmp_fmu, out)
+        publish(tmp_fmu, out)
         tmp_fmu = None
     except JointFmuError:
         raise
@@ -317,15 +317,6 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
             if name == ident or name == core or name.startswith(core + "."):
                 del sys.modules[name]
     return BuildResult(out, ident, core, params.set_id, params.content_hash())
-
-
-def _publish(tmp: Path, dest: Path) -> None:
-    """Give a finished temp file the permissions of a normal new file (mkstemp makes it 0600)
-    and move it into place in one step."""
-    mask = os.umask(0)
-    os.umask(mask)
-    os.chmod(tmp, 0o666 & ~mask)
-    os.replace(tmp, dest)
 
 
 def _jointfmu_version() -> str:
@@ -782,18 +773,11 @@ def write_csv_atomic(path: str | os.PathLike, header: Sequence[str],
                      rows: Iterable[Sequence[float]]) -> Path:
     """Write a CSV atomically (temp file beside it, then ``os.replace``); floats with repr."""
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", newline="", encoding="utf-8") as f:
-            w = csv.writer(f)
-            w.writerow(header)
-            for r in rows:
-                w.writerow([repr(float(x)) for x in r])
-        _publish(Path(tmp), path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(path, "w", newline="") as f:
+        w = csv.writer(f)
+        w.writerow(header)
+        for r in rows:
+            w.writerow([repr(float(x)) for x in r])
     return path
 
 
@@ -860,15 +844,8 @@ def write_ssv(params_path: str | os.PathLike, output: str | os.PathLike | None =
         default_output_path(params, cwd).with_suffix(".ssv")
     if out.suffix.lower() != ".ssv":
         raise InputError(f"output {str(out)!r} must end in '.ssv'")
-    out.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(parameter_values_ssv(params))
-        _publish(Path(tmp), out)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(out, "wb") as f:
+        f.write(parameter_values_ssv(params))
     return out
 
 

@@ -28,7 +28,6 @@ import math
 import numbers
 import os
 import re
-import tempfile
 from dataclasses import dataclass, field, replace
 from datetime import date, datetime, time
 from pathlib import Path
@@ -42,6 +41,7 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
     except ModuleNotFoundError:
         _toml = None  # type: ignore[assignment]
 
+from ._files import atomic_write
 from .errors import ParameterError, Problem
 
 __all__ = [
@@ -817,17 +817,8 @@ def save_parameter_set(pset: ParameterSet, path: str | os.PathLike) -> Path:
     rename), so a failure never leaves a half-written file.  Returns the path."""
     path = Path(path)
     text = pset.to_toml()
-    fd, tmp = tempfile.mkstemp(prefix="." + path.name + ".", suffix=".tmp", dir=path.parent or ".")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as f:
-            f.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+    with atomic_write(path, "w", newline="\n") as f:
+        f.write(text)
     return path
 
 
