@@ -273,7 +273,10 @@ def test_loading_an_fmu_first_leaves_building_possible(nominal_fmu, tmp_path):
         "    s.do_step(0.0, 1e-4)\n"
         "assert not [p for p in sys.path if p.endswith('resources')], sys.path\n"
         f"build_fmu({str(NOMINAL)!r}, {str(tmp_path / 'again.fmu')!r})\n"
-        "print('ok')\n")
+        "print('ok', flush=True)\n"
+        # skip interpreter finalization: processes that loaded a pythonfmu FMU sometimes abort
+        # there (see DEVELOPERS.md), which is not what this test is about
+        "import os; os._exit(0)\n")
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert r.returncode == 0 and "ok" in r.stdout, r.stderr[-2000:]
 
