@@ -401,6 +401,30 @@ class ModalSimulator:
         self._update()
         return self._y[self._slices[name]].copy()
 
+    _TAIL_NAMES = ("base_force", "energy_input", "energy_viscous", "energy_joint", "energy_joint_stored")
+
+    def output_index(self, name: str, index: int | None = None) -> int:
+        """Position of an output in :meth:`output_values`: ``name`` is one of the output
+        properties (``"q"``, ``"point_a"``, ``"base_force"``, ...), ``index`` the mode or output
+        point for the array-valued ones."""
+        if name in self._slices:
+            sl = self._slices[name]
+            n = sl.stop - sl.start
+            if index is None or not 0 <= int(index) < n:
+                raise InputError(f"output {name!r} needs an index in 0..{n - 1}, got {index!r}")
+            return sl.start + int(index)
+        if name in self._TAIL_NAMES:
+            return self._tail + self._TAIL_NAMES.index(name)
+        allowed = ", ".join(list(self._slices) + list(self._TAIL_NAMES))
+        raise InputError(f"unknown output {name!r}; allowed: {allowed}")
+
+    def output_values(self) -> np.ndarray:
+        """Every output at once, current with the state and the inputs (positions from
+        :meth:`output_index`).  The array is the simulator's own: read it, do not keep it
+        across steps or change it."""
+        self._update()
+        return self._y
+
     @property
     def q(self) -> np.ndarray:
         """Modal displacements, shape (N,) [m sqrt(kg)]."""

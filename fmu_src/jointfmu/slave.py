@@ -71,7 +71,6 @@ class JointSlave(Fmi2Slave):
                            for kind in ("modal_force", "point_force", "base_acc")}
         self._sim = None
         self._dirty = set(self._input_vrs)   # input kinds set since they were last pushed
-        self._out_cache: dict = {}           # output kind -> values, until the next change
         self._settings_changed = True        # a parameter was set since the last check
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
@@ -85,7 +84,7 @@ class JointSlave(Fmi2Slave):
     def _real(self, vr: int, var) -> Real:
         initial = Fmi2Initial[var.initial] if var.initial else None
         if var.is_output:
-            getter = self._output_getter(var)
+            getter = self._output_getter(vr)
             setter = self._refuse_setter(var)
         else:
             getter = (lambda vr=vr: self._values[vr])
@@ -94,26 +93,22 @@ class JointSlave(Fmi2Slave):
                     variability=Fmi2Variability[var.variability], initial=initial,
                     description=var.description, getter=getter, setter=setter)
 
-    def _output_getter(self, var):
-        kind, index = var.kind, var.index
+    def _output_getter(self, vr: int):
 
         def get() -> float:
             sim = self._sim
             if sim is None:
                 return 0.0
             try:
-                value = self._out_cache.get(kind)
-                if value is None:
-                    # outputs with direct feedthrough (accelerations, base force) see inputs set
-                    # since the last step; an invalid one (refused, and reported, at doStep)
-                    # leaves them at the last valid inputs
-                    if self._dirty:
-                        try:
-                            self._push_inputs()
-                        except JointFmuError:
-                            pass
-                    value = self._out_cache[kind] = getattr(sim, kind)
-                return float(value if index is None else value[index])
+                # outputs with direct feedthrough (accelerations, base force) see inputs set
+                # since the last step; an invalid one (refused, and reported, at doStep) leaves
+                # them at the last valid inputs
+                if self._dirty:
+                    try:
+                        self._push_inputs()
+                    except JointFmuError:
+                        pass
+                return float(sim.output_values()[self._out_pos[vr]])
             except Exception:       # never raise into the C wrapper
                 return math.nan
         return get
@@ -136,7 +131,6 @@ class JointSlave(Fmi2Slave):
             self._settings_changed = True
         elif var.kind in self._input_vrs:
             self._dirty.add(var.kind)
-            self._out_cache.clear()
 
     # ------------------------------------------------------------------------- life cycle
     def exit_initialization_mode(self):
@@ -159,7 +153,6 @@ class JointSlave(Fmi2Slave):
                          f"{exc}", Fmi2Status.error)
                 return False
             ok, message = self._sim.step(step_size)
-            self._out_cache.clear()
             if not ok:
                 self.log(f"step from t = {current_time!r} s by {step_size!r} s failed, state kept: "
                          f"{message}", Fmi2Status.error)
@@ -209,11 +202,12 @@ class JointSlave(Fmi2Slave):
         self._active = settings
         self._sim = None
         self._dirty = set(self._input_vrs)   # a new simulator starts from zero inputs
-        self._out_cache.clear()
         try:
             params = self._effective_params()
             from .integrate import ModalSimulator  # its range check names steps_per_period
             self._sim = ModalSimulator(params, steps_per_period=self._values[self._steps_vr])
+            self._out_pos = {vr: self._sim.output_index(v.kind, v.index)
+                             for vr, v in enumerate(self._table) if v.is_output}
         except JointFmuError as exc:
             self._init_error = str(exc)
             self.log(f"parameters out of range at initialization: {exc}", Fmi2Status.error)
@@ -273,7 +267,7 @@ class JointSlave(Fmi2Slave):
         if self._ensure_simulator():
             try:
                 self._sim.set_state(base64.b64decode(data["core"]))
-                self._dirty, self._out_cache = set(), {}   # the state holds its inputs
+                self._dirty = set()   # the state holds its inputs
             except Exception as exc:
                 self._sim, self._active = None, None
                 self.log(f"FMU state could not be restored: {exc}", Fmi2Status.error)
