@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 import shutil
 import sys
 import tempfile
@@ -35,6 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ._files import atomic_write
 from .errors import BuildError, InputError
 
 __all__ = ["build_loads_fmu", "build_controller_fmu", "run_system_of_fmus"]
@@ -157,15 +157,8 @@ def _build(ident: str, source: str, dest: Path, project_files=()) -> Path:
         FmuBuilder.build_FMU(script, dest=raw, project_files=list(project_files),
                              canHandleVariableCommunicationStepSize=True,
                              canBeInstantiatedOnlyOncePerProcess=False, needsExecutionTool=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".part", dir=dest.parent)
-        os.close(fd)
-        try:
-            shutil.copyfile(raw, tmp)
-            os.chmod(tmp, 0o644)
-            os.replace(tmp, dest)
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
+        with atomic_write(dest, "wb") as f, open(raw, "rb") as src:
+            shutil.copyfileobj(src, f)
     except Exception as exc:
         raise BuildError(f"building {ident} into {str(dest)!r} failed: "
                          f"{type(exc).__name__}: {exc}") from exc

@@ -22,8 +22,6 @@ from __future__ import annotations
 import argparse
 import html
 import json
-import math
-import os
 import tempfile
 import time
 from contextlib import nullcontext
@@ -31,7 +29,8 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Sequence
 
-from .errors import InputError, JointFmuError, ParameterError
+from ._files import atomic_write
+from .errors import InputError, ParameterError
 
 __all__ = ["CAUTION", "EXAMPLE_FILES", "find_examples", "run_demo", "write_system_page",
            "add_cosim_args", "cmd_cosim", "add_sweep_args", "cmd_sweep", "add_demo_args",
@@ -75,30 +74,14 @@ def find_examples(folder=None) -> list[Path]:
 
 # ------------------------------------------------------------------------------ helpers
 def _atomic_text(path: Path, text: str) -> Path:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(path, "w") as f:
+        f.write(text)
     return path
 
 
 def _atomic_figure(fig, path: Path) -> Path:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    os.close(fd)
-    try:
-        fig.savefig(tmp, format="png", dpi=100)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(path, "wb") as f:
+        fig.savefig(f, format="png", dpi=100)
     return path
 
 
@@ -131,11 +114,9 @@ def _cases(names: Sequence[str] | None) -> list[str]:
 
 def _build_all(param_files: Sequence[Path], fmu_dir: Path) -> list[tuple[Path, Path]]:
     from .build import build_fmu
-    from .params import load_parameter_set
 
     out = []
     for p in param_files:
-        ps = load_parameter_set(p)
         target = fmu_dir / f"{Path(p).stem}.fmu"
         r = build_fmu(p, target)
         out.append((Path(p), r.path))
@@ -293,8 +274,6 @@ def _text_table(df, keys=None) -> str:
         df = df[df["key"].isin(keys)]
     if len(df) == 0:
         return "(no results)"
-    cols = ["build", "case", "controller", "tip_acc_peak_g", "tip_acc_rms_g", "base_force_peak",
-            "energy_joint", "lin_rms_diff"]
     head = f"{'build':<12} {'case':<15} {'ctrl':<4} {'tip pk g':>9} {'tip RMS g':>9} " \
            f"{'F_if pk N':>10} {'E_joint J':>10} {'lin RMS':>8}"
     lines = [head]
