@@ -9,7 +9,6 @@ jointfmu, mass-normalized modal coordinates).
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np

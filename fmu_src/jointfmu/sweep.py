@@ -26,7 +26,6 @@ builds.
 """
 from __future__ import annotations
 
-import math
 import os
 import sys
 import tempfile
