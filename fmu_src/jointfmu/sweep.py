@@ -28,7 +28,6 @@ from __future__ import annotations
 
 import os
 import sys
-import tempfile
 import time
 import traceback
 from contextlib import contextmanager
@@ -36,6 +35,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Mapping, Sequence
 
+from ._files import atomic_write
 from .errors import InputError, SimulationError
 
 __all__ = [
@@ -134,18 +134,11 @@ def write_table(df, path) -> Path:
     suffix = p.suffix.lower()
     if suffix not in (".parquet", ".csv"):
         raise InputError(f"result table {str(p)!r}: allowed suffixes are .parquet and .csv")
-    p.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".part", dir=p.parent)
-    os.close(fd)
-    try:
+    with atomic_write(p, "wb") as f:
         if suffix == ".csv":
-            df.to_csv(tmp, index=False)
+            f.write(df.to_csv(index=False).encode("utf-8"))
         else:
-            df.to_parquet(tmp, index=False)
-        os.replace(tmp, p)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+            df.to_parquet(f, index=False)
     return p
 
 

@@ -48,6 +48,7 @@ from typing import Callable, Mapping, Sequence
 
 import numpy as np
 
+from ._files import atomic_write
 from .errors import InputError, SimulationError
 
 __all__ = [
@@ -718,16 +719,9 @@ def write_history(run: SystemRun, path) -> Path:
     import pandas as pd
 
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
     df = pd.DataFrame(run.history)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    os.close(fd)
-    try:
-        df.to_parquet(tmp, index=False)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_write(path, "wb") as f:
+        df.to_parquet(f, index=False)
     return path
 
 
