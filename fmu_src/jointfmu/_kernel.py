@@ -61,13 +61,17 @@ from __future__ import annotations
 
 import math
 
+#: Functions taken rarely, which a compiler should call rather than inline into the hot loop.
+COLD = ("_onset_correction",)
+
 # Indices into the per-mode constant table ``jc`` (shape (N, NJC)).
 KT, FS, CHI, PHIMAX, CF, CD, CUV, CK, DVPM, UVPM, MERGE_TOL, E2, KINF, SPOINT = range(14)
 NJC = 14
 
 # Indices into the per-mode scalar joint state ``js`` (shape (N, NJS)).
-U_PREV, F_PREV, E_PREV, D_ACC, D_PREV, DIRN, DEPTH, N_MERGE, N_FORCED, LOW, KTAN, KCURV = range(12)
-NJS = 12
+(U_PREV, F_PREV, E_PREV, D_ACC, D_PREV, DIRN, DEPTH, N_MERGE, N_FORCED, LOW, KTAN, KCURV,
+ ONSET_HI, ONSET_LO) = range(14)
+NJS = 14
 
 
 def _branch(x, jc, i):
@@ -133,6 +137,15 @@ def _backup_from(i, j0, js, stk, bk):
         js[i, LOW] = j0
 
 
+def _set_onset(i, jc, js, stk):
+    """Where the current branch enters macro-slip, moving up (``ONSET_HI``) or down
+    (``ONSET_LO``): u_r +- c phimax.  Kept with the branch root, so the time step can tell cheaply
+    whether a step may cross it (see :func:`_onset_correction`)."""
+    ur, fr, er, c = _root(i, js, stk)
+    js[i, ONSET_HI] = ur + c * jc[i, PHIMAX]
+    js[i, ONSET_LO] = ur - c * jc[i, PHIMAX]
+
+
 def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
     """Drop stack entries down to ``new_depth`` and keep the dissipation continuous at ``u``.
 
@@ -142,6 +155,7 @@ def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
     """
     _backup_from(i, new_depth, js, stk, bk)
     js[i, DEPTH] = new_depth
+    _set_onset(i, jc, js, stk)
     ur, fr, er, c = _root(i, js, stk)
     x = abs(u - ur) / c
     fbb, dv, uv, kt, kc = _branch(x, jc, i)
@@ -217,6 +231,7 @@ def joint_move(i, u, jc, js, stk, bk):
         stk[i, depth, 1] = js[i, F_PREV]
         stk[i, depth, 2] = js[i, E_PREV]
         js[i, DEPTH] = depth + 1.0
+        _set_onset(i, jc, js, stk)
         js[i, D_ACC] = js[i, D_PREV]
         # a loop too small to matter: drop the pair (u_{n-1}, u_n) if the branch from u_{n-2}
         # passes within merge_tol of F_n at u_n
@@ -268,6 +283,8 @@ def joint_set_virgin(i, u, jc, js):
     js[i, DEPTH] = 0.0
     js[i, KTAN] = kt
     js[i, KCURV] = kc * s
+    js[i, ONSET_HI] = jc[i, PHIMAX]
+    js[i, ONSET_LO] = -jc[i, PHIMAX]
 
 
 def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
@@ -358,8 +375,14 @@ def advance(n_sub, coef, f, st, jc, js, stk, bk):
             q1 = coef[i, 0] * q0 + coef[i, 1] * v0 + coef[i, 4] * p0 - coef[i, 6] * g1 - coef[i, 8] * g2
             v1 = coef[i, 2] * q0 + coef[i, 3] * v0 + coef[i, 5] * p0 - coef[i, 7] * g1 - coef[i, 9] * g2
             if jc[i, SPOINT] > 0.0 and v0 * v1 > 0.0:
-                q1, dv = _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk)
-                v1 += dv
+                # cheap necessary condition first: the step passes the branch's onset point
+                if v0 > 0.0:
+                    near = q0 < js[i, ONSET_HI] < q1
+                else:
+                    near = q1 < js[i, ONSET_LO] < q0
+                if near:
+                    q1, dv = _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk)
+                    v1 += dv
             if v0 * v1 < 0.0:
                 # velocity reversal inside the step: insert the displacement extremum
                 ts = v0 / (v0 - v1)
