@@ -418,7 +418,7 @@ class CoreRunner:
     Parameters
     ----------
     steps_per_period : float, optional
-        Internal sub-steps per period of the highest mode (default: the core's default, the same
+        Internal sub-steps per period of each mode (default: the core's default, the same
         as the FMU's ``steps_per_period`` start value).
     """
 

@@ -25,7 +25,7 @@ __all__ = [
     "variables_by_name",
 ]
 
-#: Internal steps per period of the highest mode when :mod:`.integrate` gives no default.
+#: Internal steps per period of each mode when :mod:`.integrate` gives no default.
 DEFAULT_STEPS_PER_PERIOD = 80.0
 
 #: Unit name -> SI base-unit exponents (``None``: no integer-exponent form, name only).
@@ -163,7 +163,7 @@ def variable_table(params, steps_per_period: float | None = None) -> tuple[FmuVa
                                 getattr(mode.joint, field), "parameter", i, field))
     table.append(_param(
         "steps_per_period", "1",
-        "internal time steps per period of the highest mode (>= 8; accuracy grows as its square)",
+        "internal time steps per period of each mode (>= 8; the error falls at least as its square)",
         steps_per_period, "steps_per_period"))
 
     for i, mode in enumerate(modes):
