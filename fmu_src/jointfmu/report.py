@@ -554,7 +554,7 @@ def _page(summaries, figs, created, version) -> str:
         "<h2>Damping vs amplitude</h2>",
         f"<img src='{figs['damping']}' alt='damping ratio vs amplitude per mode'>",
         "<p><b>ζ_rd</b>: what a free-decay (ring-down) analysis measures, −(d ln A/dt)/ω₁ "
-        "(physics sheet sec. 5, derived). <b>ζ_eq</b>: energy-equivalent damping at the "
+        "(derived for jointfmu from the Masing loop and the tangent stiffness). <b>ζ_eq</b>: energy-equivalent damping at the "
         "first-harmonic frequency, the value the equivalent linear models use for steady-state "
         "harmonic response (<code>jointfmu linearize</code>). Markers: Hilbert-transform estimate "
         "(Feldman, MSSP 8(2):119-127, 1994) from the simulated ring-down; it follows ζ_rd in "
