@@ -92,3 +92,21 @@ def test_c_master_matches_reference_and_replays_state(master):
     q, q_ref = data[:, 1], ref["q"][:, 0]
     assert np.abs(q - q_ref).max() <= 1e-3 * np.abs(q_ref).max()
     assert np.abs(data[:, 2:]).max() == 0.0              # the other modes were not excited
+    # and the C host sees what fmpy sees: the same FMU through fmpy's FMU2Slave, same inputs
+    from fmpy import extract
+    from fmpy.fmi2 import FMU2Slave
+
+    s = FMU2Slave(guid=md.guid, unzipDirectory=extract(str(fmu)), modelIdentifier=ident,
+                  instanceName="py")
+    s.instantiate()
+    s.setupExperiment(startTime=0.0)
+    s.enterInitializationMode()
+    s.exitInitializationMode()
+    rows_py = [s.getReal([vr[o] for o in outs])]
+    for k in range(n):
+        s.setReal([vr["mode[1].force"]], [float(u[k])])
+        s.doStep(currentCommunicationPoint=k * dt, communicationStepSize=dt)
+        rows_py.append(s.getReal([vr[o] for o in outs]))
+    s.terminate()
+    s.freeInstance()
+    assert np.array_equal(np.array(rows_py), data[:, 1:])
