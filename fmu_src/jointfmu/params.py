@@ -914,36 +914,28 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
 
     # [[modes]]
     modes: list[Mode] = []
-    modes_ok = True
     raw_modes = data.get("modes")
     if "modes" not in data:
         problems.append(Problem(f, "modes", None,
                                 "missing: at least one [[modes]] entry is required"))
-        modes_ok = False
     elif not isinstance(raw_modes, list) or not all(isinstance(m, Mapping) for m in raw_modes):
         problems.append(Problem(f, "modes", raw_modes,
                                 f"must be an array of tables [[modes]], got {_type_name(raw_modes)}"))
-        modes_ok = False
     elif not raw_modes:
         problems.append(Problem(f, "modes", raw_modes, "at least one [[modes]] entry is required"))
-        modes_ok = False
     else:
         for i, md in enumerate(raw_modes, start=1):
             mode = _parse_mode(i, md, has_base, f, problems)
-            if mode is None:
-                modes_ok = False
-            else:
+            if mode is not None:
                 modes.append(mode)
 
     # [[points]]
     points: list[Point] = []
     point_fields: list[str] = []
-    points_ok = True
     raw_points = data.get("points", [])
     if not isinstance(raw_points, list) or not all(isinstance(p, Mapping) for p in raw_points):
         problems.append(Problem(f, "points", raw_points,
                                 f"must be an array of tables [[points]], got {_type_name(raw_points)}"))
-        points_ok = False
     else:
         for k, pd in enumerate(raw_points, start=1):
             lab = pd.get("label")
@@ -966,8 +958,6 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
                                       pd.get("base_factor", 1.0), f, pre + ".", problems)
             if len(problems) == n_before and not missing and shp is not None:
                 points.append(Point(lab, role, direction, shp, float(pd.get("base_factor", 1.0)) + 0.0))
-            else:
-                points_ok = False
 
     # Whole-set checks, on the raw data so that they run even when some mode or point is broken.
     if name is not None:
