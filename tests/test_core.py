@@ -228,8 +228,6 @@ def test_step_contract_and_state_round_trip():
 def test_failed_step_keeps_the_state(monkeypatch):
     """A step that fails midway (here: the kernel raises after doing real work, popping loops
     below the starting depth) is undone exactly, stack included."""
-    from jointfmu import integrate
-
     ps = ONE
     sim = ModalSimulator(ps, kernel="python")
     pm = phimax(ps)[0]
