@@ -383,11 +383,9 @@ def _ring_down_key(params, impulses, dt, n_steps) -> tuple:
 
 
 def _fmu_runner():
-    """The characterization report's FMU ring-down runner (in report.py; older: characterize)."""
-    try:
-        from .report import FmuRunner
-    except ImportError:
-        from .characterize import FmuRunner
+    """The characterization report's FMU ring-down runner."""
+    from .report import FmuRunner
+
     return FmuRunner()
 
 
