@@ -16,6 +16,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Mapping, Optional
 
+from .integrate import DEFAULT_STEPS_PER_PERIOD
+
 __all__ = [
     "FmuVariable",
     "UNITS",
@@ -25,8 +27,6 @@ __all__ = [
     "variables_by_name",
 ]
 
-#: Internal steps per period of each mode when :mod:`.integrate` gives no default.
-DEFAULT_STEPS_PER_PERIOD = 80.0
 
 #: Unit name -> SI base-unit exponents (``None``: no integer-exponent form, name only).
 UNITS: Mapping[str, Optional[Mapping[str, int]]] = {
@@ -138,8 +138,8 @@ def variable_table(params, steps_per_period: float | None = None) -> tuple[FmuVa
     params : ParameterSet
         The validated parameter set the FMU is built from (start values of the parameters).
     steps_per_period : float, optional
-        Start value of ``steps_per_period``; default :data:`DEFAULT_STEPS_PER_PERIOD`, or the
-        core's ``integrate.DEFAULT_STEPS_PER_PERIOD`` when that exists.
+        Start value of ``steps_per_period``; default the core's
+        :data:`.integrate.DEFAULT_STEPS_PER_PERIOD` (re-exported here).
 
     Returns
     -------
@@ -148,7 +148,7 @@ def variable_table(params, steps_per_period: float | None = None) -> tuple[FmuVa
         inputs, then outputs.  The index of a variable is its value reference.
     """
     if steps_per_period is None:
-        steps_per_period = _core_default_steps()
+        steps_per_period = DEFAULT_STEPS_PER_PERIOD
     table: list[FmuVariable] = []
     modes = list(params.modes)
     for i, mode in enumerate(modes):
@@ -233,11 +233,3 @@ def _direction(obj) -> str:
         return "(" + ", ".join(f"{float(c):g}" for c in d) + ")"
     except TypeError:
         return str(d)
-
-
-def _core_default_steps() -> float:
-    try:
-        from .integrate import DEFAULT_STEPS_PER_PERIOD as core_default
-    except ImportError:
-        return DEFAULT_STEPS_PER_PERIOD
-    return float(core_default)
