@@ -401,6 +401,7 @@ class ModalSimulator:
         self._update()
         return self._y[self._slices[name]].copy()
 
+    #: The scalar outputs after the arrays, in the order _kernel.outputs writes them.
     _TAIL_NAMES = ("base_force", "energy_input", "energy_viscous", "energy_joint", "energy_joint_stored")
 
     def output_index(self, name: str, index: int | None = None) -> int:
@@ -417,6 +418,9 @@ class ModalSimulator:
             return self._tail + self._TAIL_NAMES.index(name)
         allowed = ", ".join(list(self._slices) + list(self._TAIL_NAMES))
         raise InputError(f"unknown output {name!r}; allowed: {allowed}")
+
+    def _scalar(self, name: str) -> float:
+        return float(self.output_values()[self.output_index(name)])
 
     def output_values(self) -> np.ndarray:
         """Every output at once, current with the state and the inputs (positions from
@@ -463,32 +467,27 @@ class ModalSimulator:
     @property
     def base_force(self) -> float:
         """Force the structure exerts on its mounting along the base direction [N]."""
-        self._update()
-        return float(self._y[self._tail])
+        return self._scalar("base_force")
 
     @property
     def energy_input(self) -> float:
         """Work done by the inputs since the start, in the base frame [J]."""
-        self._update()
-        return float(self._y[self._tail + 1])
+        return self._scalar("energy_input")
 
     @property
     def energy_viscous(self) -> float:
         """Energy dissipated by viscous damping since the start [J]."""
-        self._update()
-        return float(self._y[self._tail + 2])
+        return self._scalar("energy_viscous")
 
     @property
     def energy_joint(self) -> float:
         """Energy dissipated by the joints (micro- and macro-slip) since the start [J]."""
-        self._update()
-        return float(self._y[self._tail + 3])
+        return self._scalar("energy_joint")
 
     @property
     def energy_joint_stored(self) -> float:
         """Elastic energy held in the joints' springs now [J]."""
-        self._update()
-        return float(self._y[self._tail + 4])
+        return self._scalar("energy_joint_stored")
 
     @property
     def kinetic_potential_energy(self) -> np.ndarray:
