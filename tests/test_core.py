@@ -329,3 +329,63 @@ def test_outputs_follow_the_modal_mapping_while_moving():
     assert np.allclose(sim.point_a, m.phi_out @ qdd + m.r_out * ab, rtol=1e-11)
     assert sim.base_force == pytest.approx(m.r_in @ F - 1.5 * ab - m.gamma @ qdd, rel=1e-11)
     assert sim.energy_joint > 0 and sim.energy_joint_stored > 0
+
+
+# ----------------------------------------------------------- inputs by position (the FMU's path)
+def _positional_set():
+    pts = [{"label": "drive", "role": "input", "direction": "+z", "shape": [0.4, -0.3], "base_factor": 0.8},
+           {"label": "s1", "role": "output", "direction": "+z", "shape": [0.2, 0.5], "base_factor": 1.0}]
+    return make_set([(40.0, 0.01, 0.2, 0.5, -0.5, 0.1), (95.0, 0.01, 0.2, 0.5, -0.4, 0.2)],
+                    base_mass=1.5, points=pts)
+
+
+def test_inputs_by_position_equal_inputs_by_group():
+    """set_input_values at input_index positions and set_inputs are two doors to the same held
+    inputs: the runs agree bit for bit (outputs with direct feedthrough included)."""
+    ps = _positional_set()
+    by_group, by_pos = ModalSimulator(ps), ModalSimulator(ps)
+    pos = [by_pos.input_index("point_forces", 0), by_pos.input_index("modal_forces", 0),
+           by_pos.input_index("modal_forces", 1), by_pos.input_index("base_acc")]
+    assert sorted(pos) == [0, 1, 2, 3]
+    for k in range(80):
+        F, f1, f2, ab = 30.0 * math.sin(0.3 * k), 0.2 * math.cos(0.2 * k), -0.1, 9.0 * math.sin(0.11 * k)
+        by_group.set_inputs(point_forces=[F], modal_forces=[f1, f2], base_acc=ab)
+        if k % 2:   # every input at once, or one group at a time
+            by_pos.set_input_values(pos, [F, f1, f2, ab])
+        else:
+            by_pos.set_input_values(pos[:1], [F])
+            by_pos.set_input_values(pos[1:], [f1, f2, ab])
+        assert np.array_equal(by_pos.output_values(), by_group.output_values())
+        assert by_group.step(1e-3) == by_pos.step(1e-3) == (True, "")
+    assert np.array_equal(by_pos.output_values(), by_group.output_values())
+
+
+@pytest.mark.parametrize("positions,values,msg", [
+    ([0], [float("nan")], "point_forces[drive] = nan: must be finite"),
+    ([2], [1e300], "modal_forces[m2] = 1e+300: must be finite with |value| <="),
+    ([7], [1.0], "input position 7: allowed are integers 0..3"),
+    ([0, 1], [1.0], "3 input positions but 2 values: expected one value per position"),
+    ([0], ["x"], "input positions and values"),
+    ([1.5], [1.0], "input positions and values"),
+])
+def test_bad_inputs_by_position_rejected_and_nothing_changed(positions, values, msg):
+    sim = ModalSimulator(_positional_set())
+    sim.set_input_values([0, 1], [2.0, 0.5])
+    before = sim.output_values().copy()
+    with pytest.raises(InputError) as e:
+        sim.set_input_values([1] + positions, [0.7] + values)   # a good value first: not applied
+    assert msg in str(e.value)
+    assert np.array_equal(sim.output_values(), before)
+
+
+def test_base_input_by_position_needs_a_base():
+    sim = ModalSimulator(ONE)
+    with pytest.raises(InputError, match="no \\[base\\] mounting"):
+        sim.input_index("base_acc")
+    with pytest.raises(InputError, match="no \\[base\\] mounting; only 0 is allowed"):
+        sim.set_input_values([1], [2.0])     # the base slot of the input vector
+    sim.set_input_values([1], [0.0])
+    with pytest.raises(InputError, match="needs an index in 0..0"):
+        sim.input_index("modal_forces", 1)
+    with pytest.raises(InputError, match="unknown input 'force'; allowed: point_forces, modal_forces"):
+        sim.input_index("force")

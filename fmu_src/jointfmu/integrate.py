@@ -25,6 +25,7 @@ from __future__ import annotations
 import io
 import math
 import warnings
+from operator import index
 
 import numpy as np
 from scipy.linalg import expm
@@ -254,6 +255,14 @@ class ModalSimulator:
         }
         self._tail = o + 3 * self._n_out
         self._fresh = False  # y and f agree with the state and the inputs
+        self._step_args = self._step_arrays()
+        bind = getattr(kern, "bind", None)
+        if bind is not None:
+            # the compiled functions bound to the types of this simulator's arrays (no
+            # per-call dispatch); the arrays are allocated once, above and in _plan
+            plan = (np.zeros(n, dtype=np.int64), np.zeros((n, 11)))
+            self._step_all = bind(self._step_all, plan + self._step_arrays())
+            self._refresh = bind(self._refresh, self._refresh_arrays())
         self.time = 0.0
         self.reset()
 
@@ -316,6 +325,75 @@ class ModalSimulator:
             self._u[n_in:-1] = new_m
         self._fresh = False
 
+    #: Input groups of :meth:`set_inputs`, in the order of the input vector.
+    _INPUT_NAMES = ("point_forces", "modal_forces", "base_acc")
+
+    def input_index(self, name: str, index: int | None = None) -> int:
+        """Position of one input in the input vector used by :meth:`set_input_values`:
+        ``name`` is a keyword of :meth:`set_inputs`, ``index`` the input point or mode for the
+        array-valued ones (the vector is [point forces, modal forces, base acceleration])."""
+        n_in, n = self._n_in, self.model.n_modes
+        if name == "base_acc":
+            if not self.model.has_base:
+                raise InputError("base_acc: this structure has no [base] mounting")
+            return n_in + n
+        if name in ("point_forces", "modal_forces"):
+            start, count = (0, n_in) if name == "point_forces" else (n_in, n)
+            if index is None or not 0 <= int(index) < count:
+                raise InputError(f"input {name!r} needs an index in 0..{count - 1}, got {index!r}")
+            return start + int(index)
+        raise InputError(f"unknown input {name!r}; allowed: {', '.join(self._INPUT_NAMES)}")
+
+    def set_input_values(self, positions, values) -> None:
+        """Set single held inputs by position (from :meth:`input_index`); the same checks as
+        :meth:`set_inputs`, and nothing is changed if any value is refused.
+
+        This is the per-variable path of a co-simulation host, which sets a few inputs each step;
+        it costs a fraction of :meth:`set_inputs`.
+
+        Raises
+        ------
+        InputError
+            A position outside the input vector, or a value that is not finite or exceeds
+            ``MAX_INPUT`` in magnitude.
+        """
+        u = self._u
+        last = u.shape[0] - 1
+        try:
+            n_pos, n_val = len(positions), len(values)
+            checked = [(index(p), float(x)) for p, x in zip(positions, values)]
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"input positions and values: {exc}; expected sequences of "
+                             "positions (from input_index) and as many numbers") from None
+        if n_pos != n_val:
+            raise InputError(f"{n_pos} input positions but {n_val} values: expected one value "
+                             "per position")
+        for p, x in checked:
+            if not (-MAX_INPUT <= x <= MAX_INPUT and 0 <= p <= last) \
+                    or (p == last and x != 0.0 and not self.model.has_base):
+                raise InputError(self._input_problem(p, x))
+        for p, x in checked:
+            u[p] = x
+        self._fresh = False
+
+    def _input_problem(self, p, x) -> str:
+        """What is wrong with value ``x`` at input position ``p`` (for an error message)."""
+        last = self._u.shape[0] - 1
+        if not 0 <= p <= last:
+            return f"input position {p!r}: allowed are integers 0..{last}"
+        if not -MAX_INPUT <= x <= MAX_INPUT:   # also NaN
+            return f"{self._input_name(p)} = {x!r}: must be finite with |value| <= {MAX_INPUT:g}"
+        return "base_acc: this structure has no [base] mounting; only 0 is allowed"
+
+    def _input_name(self, p: int) -> str:
+        """The input at position ``p`` named as :meth:`set_inputs` names it in its messages."""
+        n_in = self._n_in
+        if p < n_in:
+            return f"point_forces[{self.model.input_labels[p]}]"
+        if p < n_in + self.model.n_modes:
+            return f"modal_forces[{self.model.mode_labels[p - n_in]}]"
+        return "base_acc"
+
     @staticmethod
     def _checked(value, name, labels):
         """``value`` as a list of floats, one per label, checked; None stays None."""
@@ -334,10 +412,19 @@ class ModalSimulator:
                 raise InputError(f"{name}[{labels[j]}] = {x!r}: must be finite with |value| <= {MAX_INPUT:g}")
         return values
 
+    def _step_arrays(self) -> tuple:
+        """The arguments of the kernel's ``step_all`` after the plan (n_sub, coef)."""
+        return (self._u, self._mp, self._st, self._jc, self._js, self._stk, self._bk, self._f,
+                self._y, self._st_saved, self._js_saved)
+
+    def _refresh_arrays(self) -> tuple:
+        """The arguments of the kernel's ``refresh``."""
+        return self._u, self._mp, self._st, self._jc, self._js, self._f, self._y
+
     def _update(self) -> None:
         """Bring the modal force and the outputs in line with the inputs (no time passes)."""
         if not self._fresh:
-            self._refresh(self._u, self._mp, self._st, self._jc, self._js, self._f, self._y)
+            self._refresh(*self._refresh_arrays())
             self._fresh = True
 
     # -- stepping ----------------------------------------------------------------------------
@@ -374,8 +461,7 @@ class ModalSimulator:
             return True, ""
         n_sub, coef = self._plan(dt)
         try:
-            check = self._step_all(n_sub, coef, self._u, self._mp, self._st, self._jc, self._js,
-                                   self._stk, self._bk, self._f, self._y, self._st_saved, self._js_saved)
+            check = self._step_all(n_sub, coef, *self._step_args)
             ok = math.isfinite(check)
             self._fresh = ok
             message = "" if ok else "the step produced a non-finite state"
