@@ -599,3 +599,62 @@ def test_direct_feedthrough_outputs_see_inputs_before_a_step(slave_of, psets):
     got_a, got_base = s.get(["point.tip.a", "base.force"])
     assert got_a == pytest.approx(float(np.dot(tip.shape, qdd)), rel=1e-12)
     assert got_base == pytest.approx(F * shaker.base_factor - float(gamma @ qdd), rel=1e-12)
+
+
+# ------------------------------------------------------------ getReal / setReal (FMI 2.0 sec. 2.1.7)
+def test_one_get_real_reads_parameters_inputs_and_outputs(slave_of, psets):
+    """fmi2GetReal with value references of every causality in one call, in any order, repeated:
+    each value is the one it has alone (parameter start value, input as set, output as read on
+    its own)."""
+    ps = psets["tray_nominal"]
+    s = slave_of("tray_nominal")
+    s.init()
+    _drive(s, 0.0, 40, 2e-4, 3)
+    s.set({"point.shaker.force": 4.5})
+    names = ["point.tip.a", "mode[2].joint.chi", "point.shaker.force", "mode[1].q",
+             "point.tip.a", "base.force", "steps_per_period"]
+    together = s.get(names)
+    alone = np.array([s.get([n])[0] for n in names])
+    assert np.array_equal(together, alone)
+    assert together[1] == ps.modes[1].joint.chi and together[2] == 4.5 and together[0] == together[4]
+
+
+def test_unknown_value_reference_reported(slave_of):
+    """A value reference that is not in modelDescription.xml: getReal reads NaN, setReal changes
+    nothing, and an error-status message names it and the allowed range; the FMU goes on."""
+    s = slave_of("tray_nominal")
+    s.init()
+    n = len(s.md.modelVariables)
+    before = s.get()
+    got = s.fmu.getReal([s.vr["mode[1].q"], n + 5])
+    assert got[0] == before[s.outputs.index("mode[1].q")] and math.isnan(got[1])
+    s.fmu.setReal([n + 7], [1.0])
+    msgs = [msg for st, msg in s.log if st == 3]
+    assert any(f"value reference {n + 5} is not a variable" in m and f"0..{n - 1}" in m for m in msgs)
+    assert any(f"value reference {n + 7} is not a variable" in m and "ignored" in m for m in msgs)
+    assert np.array_equal(s.get(), before)
+    s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)
+
+
+def test_output_cannot_be_set(slave_of):
+    s = slave_of("tray_nominal")
+    s.init()
+    before = s.get()
+    s.set({"point.tip.x": 3.0})
+    assert np.array_equal(s.get(), before)
+    assert any(st == 3 and "point.tip.x is an output and cannot be set" in msg for st, msg in s.log)
+
+
+def test_input_beyond_the_allowed_magnitude_refused(slave_of):
+    """A finite input too large for the core (|value| > 1e12) is refused at doStep like NaN,
+    named by its FMU variable; a valid value afterwards lets the run go on."""
+    s = slave_of("tray_nominal")
+    s.init()
+    s.set({"base.acceleration": 1e15})
+    with pytest.raises(Exception) as exc:
+        s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)
+    assert getattr(exc.value, "status", None) == 2          # fmi2Discard
+    assert any(st == 3 and "base.acceleration = 1000000000000000.0" in msg
+               and "|value| <= 1e+12" in msg for st, msg in s.log), s.log
+    s.set({"base.acceleration": 1.0})
+    s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)

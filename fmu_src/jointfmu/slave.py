@@ -35,6 +35,7 @@ from pythonfmu.enums import Fmi2Causality, Fmi2Initial, Fmi2Status, Fmi2Variabil
 from pythonfmu.variables import Real
 
 from .errors import InputError, JointFmuError
+from .integrate import MAX_INPUT
 from .params import load_parameter_set
 from .variables import variable_table
 
@@ -45,6 +46,10 @@ PARAMETER_FILE = "parameters.toml"
 BUILD_INFO_FILE = "jointfmu_build.json"
 
 _STATE_MAGIC = "jointfmu-state-1"
+
+#: Input kinds of the variable table -> the simulator's names for them (ModalSimulator.input_index).
+_INPUT_NAMES = {"modal_force": "modal_forces", "point_force": "point_forces",
+                "base_acc": "base_acc"}
 
 
 class JointSlave(Fmi2Slave):
@@ -67,10 +72,12 @@ class JointSlave(Fmi2Slave):
         self._values: list[Any] = [v.start for v in self._table]
         self._param_vrs = [k for k, v in enumerate(self._table) if v.kind == "parameter"]
         self._steps_vr = next(k for k, v in enumerate(self._table) if v.kind == "steps_per_period")
-        self._input_vrs = {kind: [k for k, v in enumerate(self._table) if v.kind == kind]
-                           for kind in ("modal_force", "point_force", "base_acc")}
+        self._input_vrs = frozenset(k for k, v in enumerate(self._table) if v.is_input)
         self._sim = None
-        self._dirty = set(self._input_vrs)   # input kinds set since they were last pushed
+        self._in_pos: dict[int, int] = {}    # input vr -> position in the simulator's inputs
+        self._out_pos: dict[int, int] = {}   # output vr -> position in its output vector
+        self._pending = set(self._input_vrs)  # inputs set since they were last handed over
+        self._outs: list | None = None       # every output as a float, None when out of date
         self._settings_changed = True        # a parameter was set since the last check
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
@@ -82,45 +89,87 @@ class JointSlave(Fmi2Slave):
 
     # ----------------------------------------------------------------------------- variables
     def _real(self, vr: int, var) -> Real:
+        # the per-variable getter and setter go through the same fast paths as the host's calls
         initial = Fmi2Initial[var.initial] if var.initial else None
-        if var.is_output:
-            getter = self._output_getter(vr)
-            setter = self._refuse_setter(var)
-        else:
-            getter = (lambda vr=vr: self._values[vr])
-            setter = (lambda value, vr=vr: self._set_value(vr, value))
         return Real(var.name, start=var.start, causality=Fmi2Causality[var.causality],
                     variability=Fmi2Variability[var.variability], initial=initial,
-                    description=var.description, getter=getter, setter=setter)
+                    description=var.description,
+                    getter=lambda vr=vr: self.get_real([vr])[0],
+                    setter=lambda value, vr=vr: self.set_real([vr], [value]))
 
-    def _output_getter(self, vr: int):
+    def get_real(self, vrs):
+        """Values of the variables ``vrs`` (fmi2GetReal); pythonfmu's C wrapper calls this once
+        per host call.
 
-        def get() -> float:
-            sim = self._sim
-            if sim is None:
-                return 0.0
+        Outputs are read from the simulator's output vector, converted to floats once after each
+        change of state or input (outputs with direct feedthrough, accelerations and the base
+        force, see inputs set since the last step; an input refused at doStep leaves them at
+        the last valid inputs).  An unknown value reference is reported and reads NaN: nothing
+        here raises into the C wrapper.
+        """
+        try:
+            outs = self._outs
+            if outs is None:
+                outs = self._current_outputs()
+            out_pos, values = self._out_pos, self._values
+            if vrs and min(vrs) < 0:    # a list index would count from the end
+                raise IndexError(vrs)
+            return [outs[out_pos[vr]] if vr in out_pos else values[vr] for vr in vrs]
+        except Exception:
+            return [self._get_one(vr) for vr in vrs]
+
+    def _current_outputs(self) -> list:
+        """Every output as floats, current with the state and inputs; cached until either changes."""
+        sim = self._sim
+        if sim is None:
+            raise LookupError("no simulator")    # get_real's per-variable path answers
+        if self._pending:
             try:
-                # outputs with direct feedthrough (accelerations, base force) see inputs set
-                # since the last step; an invalid one (refused, and reported, at doStep) leaves
-                # them at the last valid inputs
-                if self._dirty:
-                    try:
-                        self._push_inputs()
-                    except JointFmuError:
-                        pass
-                return float(sim.output_values()[self._out_pos[vr]])
-            except Exception:       # never raise into the C wrapper
-                return math.nan
-        return get
+                self._push_inputs()
+            except JointFmuError:
+                pass
+        self._outs = sim.output_values().tolist()
+        return self._outs
 
-    def _refuse_setter(self, var):
-        def refuse(value) -> None:
+    def _get_one(self, vr) -> float:
+        """One value on the slow path: before a simulator exists (outputs read 0), an unknown
+        value reference (reported, NaN), or an output that cannot be evaluated (NaN)."""
+        if not (isinstance(vr, int) and 0 <= vr < len(self._table)):
+            self.log(f"value reference {vr!r} is not a variable of this FMU: allowed are "
+                     f"0..{len(self._table) - 1} (modelDescription.xml)", Fmi2Status.error)
+            return math.nan
+        if not self._table[vr].is_output:
+            return self._values[vr]
+        if self._sim is None:
+            return 0.0
+        try:
+            return self._current_outputs()[self._out_pos[vr]]
+        except Exception:       # never raise into the C wrapper
+            return math.nan
+
+    def set_real(self, vrs, values) -> None:
+        """Set the variables ``vrs`` (fmi2SetReal).  Inputs are kept and handed to the simulator
+        at the next doStep or output read; parameters only before initialization ends; outputs
+        and unknown value references are refused with an error-status message."""
+        inputs, stored, pending = self._input_vrs, self._values, self._pending
+        for vr, value in zip(vrs, values):
+            if vr in inputs:
+                stored[vr] = value
+                pending.add(vr)
+            else:
+                self._set_value(vr, value)
+        self._outs = None
+
+    def _set_value(self, vr, value) -> None:
+        if not (isinstance(vr, int) and 0 <= vr < len(self._table)):
+            self.log(f"value reference {vr!r} is not a variable of this FMU: allowed are "
+                     f"0..{len(self._table) - 1} (value {value!r} ignored)", Fmi2Status.error)
+            return
+        var = self._table[vr]
+        if var.is_output:
             self.log(f"{var.name} is an output and cannot be set (value {value!r} ignored)",
                      Fmi2Status.error)
-        return refuse
-
-    def _set_value(self, vr: int, value: float) -> None:
-        var = self._table[vr]
+            return
         if var.is_parameter and self._initialized:
             self.log(f"parameter {var.name} can only be set before initialization ends "
                      f"(value {value!r} ignored); instantiate anew or reset to change it",
@@ -129,8 +178,8 @@ class JointSlave(Fmi2Slave):
         self._values[vr] = float(value)
         if var.is_parameter:
             self._settings_changed = True
-        elif var.kind in self._input_vrs:
-            self._dirty.add(var.kind)
+        else:
+            self._pending.add(vr)
 
     # ------------------------------------------------------------------------- life cycle
     def exit_initialization_mode(self):
@@ -153,6 +202,7 @@ class JointSlave(Fmi2Slave):
                          f"{exc}", Fmi2Status.error)
                 return False
             ok, message = self._sim.step(step_size)
+            self._outs = None
             if not ok:
                 self.log(f"step from t = {current_time!r} s by {step_size!r} s failed, state kept: "
                          f"{message}", Fmi2Status.error)
@@ -164,26 +214,22 @@ class JointSlave(Fmi2Slave):
             return False
 
     def _push_inputs(self) -> None:
-        """Hand the input groups set since the last push to the simulator."""
-        if not self._dirty:
+        """Hand the inputs set since the last push to the simulator (all or none of them)."""
+        pending = self._pending
+        if not pending:
             return
-        vals = self._values
-        for kind in self._dirty:
-            for k in self._input_vrs[kind]:
-                if not math.isfinite(vals[k]):
-                    # named by its FMU variable; the core repeats the check in its own terms
-                    raise InputError(f"input {self._table[k].name} = {vals[k]!r} "
-                                     f"[{self._table[k].unit}]: allowed are finite values")
-        kwargs = {}
-        vrs = self._input_vrs
-        if vrs["modal_force"] and "modal_force" in self._dirty:
-            kwargs["modal_forces"] = [vals[k] for k in vrs["modal_force"]]
-        if vrs["point_force"] and "point_force" in self._dirty:
-            kwargs["point_forces"] = [vals[k] for k in vrs["point_force"]]
-        if vrs["base_acc"] and "base_acc" in self._dirty:
-            kwargs["base_acc"] = float(vals[vrs["base_acc"][0]])
-        self._sim.set_inputs(**kwargs)
-        self._dirty.clear()
+        vals, in_pos = self._values, self._in_pos
+        vrs = list(pending)
+        try:
+            self._sim.set_input_values([in_pos[k] for k in vrs], [vals[k] for k in vrs])
+        except InputError:
+            for k in sorted(vrs):    # name the refused input by its FMU variable
+                x, var = vals[k], self._table[k]
+                if not (isinstance(x, (int, float)) and -MAX_INPUT <= x <= MAX_INPUT):
+                    raise InputError(f"input {var.name} = {x!r} [{var.unit}]: allowed are "
+                                     f"finite values with |value| <= {MAX_INPUT:g}") from None
+            raise
+        pending.clear()
 
     def _current_settings(self):
         return (tuple(self._values[k] for k in self._param_vrs), self._values[self._steps_vr])
@@ -201,13 +247,17 @@ class JointSlave(Fmi2Slave):
             return False
         self._active = settings
         self._sim = None
-        self._dirty = set(self._input_vrs)   # a new simulator starts from zero inputs
+        self._outs = None
+        self._pending = set(self._input_vrs)   # a new simulator starts from zero inputs
         try:
             params = self._effective_params()
             from .integrate import ModalSimulator  # its range check names steps_per_period
-            self._sim = ModalSimulator(params, steps_per_period=self._values[self._steps_vr])
-            self._out_pos = {vr: self._sim.output_index(v.kind, v.index)
+            sim = ModalSimulator(params, steps_per_period=self._values[self._steps_vr])
+            self._in_pos = {vr: sim.input_index(_INPUT_NAMES[v.kind], v.index)
+                            for vr, v in enumerate(self._table) if v.is_input}
+            self._out_pos = {vr: sim.output_index(v.kind, v.index)
                              for vr, v in enumerate(self._table) if v.is_output}
+            self._sim = sim
         except JointFmuError as exc:
             self._init_error = str(exc)
             self.log(f"parameters out of range at initialization: {exc}", Fmi2Status.error)
@@ -258,6 +308,7 @@ class JointSlave(Fmi2Slave):
             self.log(f"FMU state rejected, current state kept: {exc}", Fmi2Status.error)
             return
         self._values = [None if v is None else float(v) for v in values]
+        self._outs = None
         self._settings_changed = True
         self._initialized = bool(data["initialized"])
         if data["core"] is None:            # saved before the simulator existed
@@ -267,7 +318,7 @@ class JointSlave(Fmi2Slave):
         if self._ensure_simulator():
             try:
                 self._sim.set_state(base64.b64decode(data["core"]))
-                self._dirty = set()   # the state holds its inputs
+                self._pending = set()   # the state holds its inputs
             except Exception as exc:
                 self._sim, self._active = None, None
                 self.log(f"FMU state could not be restored: {exc}", Fmi2Status.error)
