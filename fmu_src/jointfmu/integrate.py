@@ -22,6 +22,7 @@ the linear part.
 """
 from __future__ import annotations
 
+import array
 import io
 import math
 import warnings
@@ -236,7 +237,11 @@ class ModalSimulator:
         self._n_in, self._n_out = len(m.input_labels), len(m.output_labels)
         # inputs [point forces, modal forces, base acceleration] and the kernel's mapping table
         # (see _kernel.modal_inputs), outputs in the layout of _kernel.outputs
-        self._u = np.zeros(self._n_in + n + 1)
+        # inputs and outputs live in array.array buffers with NumPy views for the kernel: a
+        # co-simulation host reads and writes single values, which array.array does as
+        # Python floats without NumPy's per-item cost
+        self._ubuf = array.array("d", bytes(8 * (self._n_in + n + 1)))
+        self._u = np.frombuffer(self._ubuf, dtype=float)
         self._mp = np.zeros((self._n_in + self._n_out + 1, n + 1))
         self._mp[: self._n_in, :n] = m.phi_in
         self._mp[: self._n_in, n] = m.r_in
@@ -245,7 +250,8 @@ class ModalSimulator:
         self._mp[-1, :n] = m.gamma
         self._mp[-1, n] = m.total_mass
         self._f = np.zeros(n)
-        self._y = np.zeros(4 * n + 3 * self._n_out + K.Y_TAIL)
+        self._ybuf = array.array("d", bytes(8 * (4 * n + 3 * self._n_out + K.Y_TAIL)))
+        self._y = np.frombuffer(self._ybuf, dtype=float)
         o = 4 * n
         self._slices = {
             "q": slice(0, n), "qdot": slice(n, 2 * n), "joint_force": slice(2 * n, 3 * n),
@@ -357,8 +363,7 @@ class ModalSimulator:
             A position outside the input vector, or a value that is not finite or exceeds
             ``MAX_INPUT`` in magnitude.
         """
-        u = self._u
-        last = u.shape[0] - 1
+        last = self._u.shape[0] - 1
         try:
             n_pos, n_val = len(positions), len(values)
             checked = [(index(p), float(x)) for p, x in zip(positions, values)]
@@ -372,8 +377,9 @@ class ModalSimulator:
             if not (-MAX_INPUT <= x <= MAX_INPUT and 0 <= p <= last) \
                     or (p == last and x != 0.0 and not self.model.has_base):
                 raise InputError(self._input_problem(p, x))
+        ubuf = self._ubuf
         for p, x in checked:
-            u[p] = x
+            ubuf[p] = x
         self._fresh = False
 
     def _input_problem(self, p, x) -> str:
@@ -507,6 +513,15 @@ class ModalSimulator:
 
     def _scalar(self, name: str) -> float:
         return float(self.output_values()[self.output_index(name)])
+
+    def output_buffer(self) -> array.array:
+        """Every output at once as a flat ``array.array("d")`` holding the same numbers as
+        :meth:`output_values` (positions from :meth:`output_index`); indexing it gives Python
+        floats at a fraction of NumPy's per-item cost.  The buffer is the simulator's own: read
+        it, do not keep it across steps or change it."""
+        if not self._fresh:
+            self._update()
+        return self._ybuf
 
     def output_values(self) -> np.ndarray:
         """Every output at once, current with the state and the inputs (positions from

@@ -77,7 +77,6 @@ class JointSlave(Fmi2Slave):
         self._in_pos: dict[int, int] = {}    # input vr -> position in the simulator's inputs
         self._out_pos: dict[int, int] = {}   # output vr -> position in its output vector
         self._pending = set(self._input_vrs)  # inputs set since they were last handed over
-        self._outs: list | None = None       # every output as a float, None when out of date
         self._settings_changed = True        # a parameter was set since the last check
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
@@ -101,16 +100,16 @@ class JointSlave(Fmi2Slave):
         """Values of the variables ``vrs`` (fmi2GetReal); pythonfmu's C wrapper calls this once
         per host call.
 
-        Outputs are read from the simulator's output vector, converted to floats once after each
-        change of state or input (outputs with direct feedthrough, accelerations and the base
-        force, see inputs set since the last step; an input refused at doStep leaves them at
-        the last valid inputs).  An unknown value reference is reported and reads NaN: nothing
-        here raises into the C wrapper.
+        Outputs are read from the simulator's output buffer, current with the state and the
+        inputs (outputs with direct feedthrough, accelerations and the base force, see inputs
+        set since the last step; an input refused at doStep leaves them at the last valid
+        inputs).  An unknown value reference is reported and reads NaN: nothing here raises
+        into the C wrapper.
         """
         try:
-            outs = self._outs
-            if outs is None:
-                outs = self._current_outputs()
+            if self._pending:
+                self._push_inputs_if_valid()
+            outs = self._sim.output_buffer()     # AttributeError before a simulator exists
             out_pos, values = self._out_pos, self._values
             if vrs and min(vrs) < 0:    # a list index would count from the end
                 raise IndexError(vrs)
@@ -118,18 +117,11 @@ class JointSlave(Fmi2Slave):
         except Exception:
             return [self._get_one(vr) for vr in vrs]
 
-    def _current_outputs(self) -> list:
-        """Every output as floats, current with the state and inputs; cached until either changes."""
-        sim = self._sim
-        if sim is None:
-            raise LookupError("no simulator")    # get_real's per-variable path answers
-        if self._pending:
-            try:
-                self._push_inputs()
-            except JointFmuError:
-                pass
-        self._outs = sim.output_values().tolist()
-        return self._outs
+    def _push_inputs_if_valid(self) -> None:
+        try:
+            self._push_inputs()
+        except JointFmuError:
+            pass    # refused, and reported, at doStep
 
     def _get_one(self, vr) -> float:
         """One value on the slow path: before a simulator exists (outputs read 0), an unknown
@@ -143,7 +135,8 @@ class JointSlave(Fmi2Slave):
         if self._sim is None:
             return 0.0
         try:
-            return self._current_outputs()[self._out_pos[vr]]
+            self._push_inputs_if_valid()
+            return self._sim.output_buffer()[self._out_pos[vr]]
         except Exception:       # never raise into the C wrapper
             return math.nan
 
@@ -158,7 +151,6 @@ class JointSlave(Fmi2Slave):
                 pending.add(vr)
             else:
                 self._set_value(vr, value)
-        self._outs = None
 
     def _set_value(self, vr, value) -> None:
         if not (isinstance(vr, int) and 0 <= vr < len(self._table)):
@@ -202,7 +194,6 @@ class JointSlave(Fmi2Slave):
                          f"{exc}", Fmi2Status.error)
                 return False
             ok, message = self._sim.step(step_size)
-            self._outs = None
             if not ok:
                 self.log(f"step from t = {current_time!r} s by {step_size!r} s failed, state kept: "
                          f"{message}", Fmi2Status.error)
@@ -247,7 +238,6 @@ class JointSlave(Fmi2Slave):
             return False
         self._active = settings
         self._sim = None
-        self._outs = None
         self._pending = set(self._input_vrs)   # a new simulator starts from zero inputs
         try:
             params = self._effective_params()
@@ -308,7 +298,6 @@ class JointSlave(Fmi2Slave):
             self.log(f"FMU state rejected, current state kept: {exc}", Fmi2Status.error)
             return
         self._values = [None if v is None else float(v) for v in values]
-        self._outs = None
         self._settings_changed = True
         self._initialized = bool(data["initialized"])
         if data["core"] is None:            # saved before the simulator existed

@@ -2,7 +2,7 @@
 
 Run::
 
-    /work/venv0/bin/python tests/bench/bench_speed.py [--quick]
+    .venv/bin/python tests/bench/bench_speed.py [--quick]
 
 It prints readable tables, then, as its LAST line, one JSON object with (at least)
 ``kernel_ns_per_mode_step``, ``fmu_realtime_factor``, ``speedup_vs_reference``,
@@ -237,21 +237,53 @@ def _open_fmu(path):
     return s, md
 
 
-def _loop(s, ivr, ovr, n, dt=1e-3, amp=None):
-    amp = amp if amp is not None else [0.0] * len(ivr)
+def _loop(s, ivr, ovr, n, dt=1e-3, amp=None, style="lists"):
+    """A host loop of ``n`` communication steps: set inputs, doStep, read outputs.
+
+    ``style="lists"``: FMU2Slave's ``setReal``/``getReal`` with Python lists (ctypes arrays made
+    at every call).  ``style="arrays"``: FMU2Slave's ``fmi2SetReal``/``fmi2GetReal`` on ctypes
+    arrays made once, as fmpy's own ``simulate_fmu`` feeds inputs.  ``ivr = ovr = None``: doStep
+    alone.
+    """
+    from fmpy.fmi2 import fmi2Real, fmi2ValueReference
+
     w = 2 * np.pi * 35.0
+    s_time = [0.0]
+    if ivr is None:
+        def run():
+            t0 = s_time[0]
+            for k in range(n):
+                s.doStep(t0 + k * dt, dt)
+            s_time[0] = t0 + n * dt
+        return run
+    amp = amp if amp is not None else [0.0] * len(ivr)
+    if style == "lists":
+        def run():
+            t0 = s_time[0]
+            for k in range(n):
+                t = t0 + k * dt
+                x = math.sin(w * t)
+                s.setReal(ivr, [a * x for a in amp])
+                s.doStep(t, dt)
+                s.getReal(ovr)
+            s_time[0] = t0 + n * dt
+        return run
+    vi, xi = (fmi2ValueReference * len(ivr))(*ivr), (fmi2Real * len(ivr))()
+    vo, xo = (fmi2ValueReference * len(ovr))(*ovr), (fmi2Real * len(ovr))()
+    ni, no, c = len(ivr), len(ovr), s.component
+    set_real, do_step, get_real = s.fmi2SetReal, s.fmi2DoStep, s.fmi2GetReal
 
     def run():
         t0 = s_time[0]
         for k in range(n):
             t = t0 + k * dt
-            x = np.sin(w * t)
-            s.setReal(ivr, [a * x for a in amp])
-            s.doStep(t, dt)
-            s.getReal(ovr)
+            x = math.sin(w * t)
+            for j in range(ni):
+                xi[j] = amp[j] * x
+            set_real(c, vi, ni, xi)
+            do_step(c, t, dt, 1)
+            get_real(c, vo, no, xo)
         s_time[0] = t0 + n * dt
-
-    s_time = [0.0]
     return run
 
 
@@ -280,7 +312,8 @@ def bench_fmu(params, work: Path, quick):
     e_in = [v.valueReference for v in emd.modelVariables if v.causality == "input"]
     e_out = [v.valueReference for v in emd.modelVariables if v.causality == "output"]
 
-    # many short windows, the fastest counts (the machine may be shared)
+    # many short windows, the fastest counts (the machine may be shared); ours and the empty
+    # slave alternate, so both see the same conditions
     n = 100 if quick else 200
     rep = 8 if quick else 20
     drive = 4.0 * params.modes[0].joint.Fs
@@ -290,24 +323,28 @@ def bench_fmu(params, work: Path, quick):
         "all": (ins, outs, len(ins), len(outs)),
     }
     for name, (iv, ov, ni, no) in cases.items():
-        amp = [drive] * ni
-        t_ours = best(_loop(s, iv, ov, n, amp=amp), rep) / n
-        t_empty = best(_loop(e, e_in[:ni], e_out[:no], n), rep) / n
-        t_step = best(_loop(s, [], [], n), rep) / n
-        t_empty_step = best(_loop(e, [], [], n), rep) / n
-        res[name] = {"us_per_step": t_ours * 1e6, "realtime_factor": 1e-3 / t_ours,
-                     "empty_us_per_step": t_empty * 1e6,
-                     "doStep_only_us": t_step * 1e6, "empty_doStep_only_us": t_empty_step * 1e6}
-    # the core alone, per communication step
+        for style in ("lists", "arrays"):
+            ours_run = _loop(s, iv, ov, n, amp=[drive] * ni, style=style)
+            empty_run = _loop(e, e_in[:ni], e_out[:no], n, style=style)
+            t_ours = t_empty = np.inf
+            for _ in range(rep):
+                t_ours = min(t_ours, best(ours_run, 1))
+                t_empty = min(t_empty, best(empty_run, 1))
+            res[f"{name}_{style}"] = {"us_per_step": t_ours / n * 1e6,
+                                      "realtime_factor": 1e-3 / (t_ours / n),
+                                      "empty_us_per_step": t_empty / n * 1e6}
+    res["doStep_only_us"] = best(_loop(s, None, None, n), rep) / n * 1e6
+    res["empty_doStep_only_us"] = best(_loop(e, None, None, n), rep) / n * 1e6
+    # the core alone, per communication step, fed as the slave feeds it
     sim = excited(params)
-    f = np.zeros(params.n_modes)
+    pos = [sim.input_index("point_forces", 0)]
 
     def core():
         for k in range(n):
-            sim.set_inputs(point_forces=[drive * np.sin(0.2 * k)], modal_forces=f)
+            sim.set_input_values(pos, [drive * math.sin(0.2 * k)])
             sim.step(1e-3)
+            sim.output_values()
     res["core_us_per_step"] = best(core, rep) / n * 1e6
-    res["core_kernel_us_per_step"] = None  # filled by main from the kernel ns
     res["mode_steps_per_step"] = int(sim.sub_steps(1e-3).sum())
     # memory over many FMU steps
     m_steps = 20000 if quick else 100000
@@ -455,20 +492,102 @@ def bench_slave_internals(params, fmu_path: Path, quick):
     ins = [v.value_reference for v in slave.vars.values() if v.causality.name == "input"]
     outs = [v.value_reference for v in slave.vars.values() if v.causality.name == "output"]
     typ_out = [vars_[f"point.tip.{k}"] for k in ("x", "v", "a")]
+    typ_in = [vars_["point.drive.force"]]
     n = 100 if quick else 200
     rep = 8 if quick else 20
     vals = [0.0] * len(ins)
+
     r = {}
     for label, fn in (
         ("set_real_all_us", lambda: slave.set_real(ins, vals)),
+        ("set_real_one_and_push_us", lambda: (slave.set_real(typ_in, [1.0]),
+                                              slave._push_inputs())),
         ("do_step_us", lambda: slave.do_step(0.0, 1e-3)),
-        ("push_inputs_us", lambda: slave._push_inputs()),
         ("get_real_typical_us", lambda: slave.get_real(typ_out)),
         ("get_real_all_us", lambda: slave.get_real(outs)),
     ):
         r[label] = best(lambda: [fn() for _ in range(n)], rep) / n * 1e6
     sys.path.remove(str(res))
     return r
+
+
+# ------------------------------------------------------------------------------- machine anchors
+#: The issue's own measurements "on this kind of machine", against which its targets were set
+#: (issue 5): a bare compiled exact reversal-stack Iwan joint force, general chi, about 18 ns per
+#: mode-step; an empty doStep of a pythonfmu FMU through fmpy's FMU2Slave, about 1.4 us.  The
+#: same two things are measured here, in this run, so that the targets can be scaled to the
+#: machine the benchmark runs on (shared machines differ by 2-3x from day to day).
+ISSUE_BARE_JOINT_NS = 18.0
+ISSUE_EMPTY_DOSTEP_US = 1.4
+TARGET_KERNEL_NS = 30.0
+TARGET_REALTIME_FACTOR = 100.0
+
+
+def _bare_joint_kernel():
+    """A bare exact Iwan joint force, compiled: N joints, each on its own prescribed decaying
+    displacement path, force from the backbone and a reversal stack (Masing's rules with
+    wiping-out, one power per evaluation, as the exact model needs for general chi; Segalman
+    2005, the backbone F = Kt x - R x^(chi+2)/((chi+1)(chi+2)) below phimax).  No time
+    integration, no energies, no memory bound: the floor a joint-force evaluation costs on this
+    machine, written here independently of jointfmu's kernel."""
+    import numba
+
+    @numba.njit(cache=False, error_model="numpy")
+    def run(u, kt, cf, e2, phimax, fs, stk_u, stk_f):
+        n_steps, n_joints = u.shape
+        depth = np.zeros(n_joints, dtype=np.int64)
+        dirn = np.zeros(n_joints)
+        u_prev = np.zeros(n_joints)
+        f_prev = np.zeros(n_joints)
+        total = 0.0
+        for k in range(n_steps):
+            for j in range(n_joints):
+                uk = u[k, j]
+                d = 1.0 if uk > u_prev[j] else -1.0
+                if dirn[j] != 0.0 and d != dirn[j]:
+                    stk_u[j, depth[j]] = u_prev[j]
+                    stk_f[j, depth[j]] = f_prev[j]
+                    depth[j] += 1
+                dirn[j] = d
+                while depth[j] > 0:
+                    dj = depth[j]
+                    uc = stk_u[j, dj - 2] if dj >= 2 else -stk_u[j, 0]
+                    if (uk - uc) * d <= 0.0:
+                        break
+                    depth[j] = dj - 2 if dj >= 2 else 0
+                if depth[j] == 0:
+                    ur, fr, c = 0.0, 0.0, 1.0
+                else:
+                    ur, fr, c = stk_u[j, depth[j] - 1], stk_f[j, depth[j] - 1], 2.0
+                du = uk - ur
+                x = abs(du) / c
+                fbb = kt[j] * x - cf[j] * x ** e2[j] if x < phimax[j] else fs[j]
+                f = fr + (c if du >= 0.0 else -c) * fbb
+                u_prev[j] = uk
+                f_prev[j] = f
+                total += f
+        return total
+    return run
+
+
+def bench_bare_joint(quick):
+    """ns per joint evaluation of :func:`_bare_joint_kernel` on 10 joints, 40 points per period,
+    amplitudes decaying from 0.9 to 0.05 phimax (micro-slip: the power is taken every time)."""
+    run = _bare_joint_kernel()
+    n_j, n_steps = 10, 20000 if quick else 50000
+    chi = np.linspace(-0.35, -0.62, n_j)
+    kt, fs, beta = np.full(n_j, 1.0), np.full(n_j, 1.0), 0.1
+    a = (chi + 1.0) / (chi + 2.0)
+    phimax = fs * (1.0 + beta) / (kt * (beta + a))
+    R = fs * (chi + 1.0) / (phimax ** (chi + 2.0) * (beta + a))
+    cf = R / ((chi + 1.0) * (chi + 2.0))
+    k = np.arange(n_steps)[:, None]
+    amp = phimax * np.geomspace(0.9, 0.05, n_steps)[:, None]
+    u = amp * np.sin(2 * np.pi * k / 40.0 * (1.0 + 0.03 * np.arange(n_j)) + np.arange(n_j))
+    stk_u, stk_f = np.zeros((n_j, n_steps)), np.zeros((n_j, n_steps))
+    args = (u, kt, cf, chi + 2.0, phimax, fs, stk_u, stk_f)
+    run(*args)   # compile
+    return best(lambda: run(*args), 10 if quick else 30) / (n_steps * n_j) * 1e9
 
 
 # ------------------------------------------------------------------------------- report
@@ -482,9 +601,16 @@ def main(argv=None) -> int:
     params = make_params()
     t_all = time.perf_counter()
     k = bench_kernel(params, quick)
+    bare_ns = bench_bare_joint(quick)
+    kernel_factor = bare_ns / ISSUE_BARE_JOINT_NS
     print(f"kernel: {k['kernel']} ({k['kernel_reason']})")
     print(f"  core stepping, 10 modes, steps_per_period {k['steps_per_period']:g}: "
-          f"{k['kernel_ns_per_mode_step']:.1f} ns per mode-step (target <= 30)")
+          f"{k['kernel_ns_per_mode_step']:.1f} ns per mode-step")
+    print(f"  bare compiled Iwan joint force on this machine: {bare_ns:.1f} ns (the issue's machine: "
+          f"{ISSUE_BARE_JOINT_NS:g}): target <= {TARGET_KERNEL_NS:g} ns there is <= "
+          f"{TARGET_KERNEL_NS * kernel_factor:.1f} ns here; ours / bare = "
+          f"{k['kernel_ns_per_mode_step'] / bare_ns:.2f} (target "
+          f"{TARGET_KERNEL_NS / ISSUE_BARE_JOINT_NS:.2f})")
     print(f"  plain-Python fallback: {k['fallback_ns_per_mode_step']:.0f} ns per mode-step "
           f"({k['compiled_over_python']:.0f}x slower)")
 
@@ -509,15 +635,24 @@ def main(argv=None) -> int:
     fm, fmu_path = bench_fmu(params, work, quick)
     print(f"\nFMU through fmpy FMU2Slave, 1 ms step ({fm['mode_steps_per_step']} mode-steps), "
           f"{fm['n_inputs']} inputs, {fm['n_outputs']} outputs; built in {fm['build_s']:.2f} s")
-    print("  case                 ours [us/step]  realtime x  empty slave [us]  doStep only: "
-          "ours  empty")
+    fmu_factor = fm["empty_doStep_only_us"] / ISSUE_EMPTY_DOSTEP_US
+    us_target_here = 1e3 / TARGET_REALTIME_FACTOR * fmu_factor
+    print(f"  empty doStep alone: {fm['empty_doStep_only_us']:.2f} us (the issue's machine: "
+          f"{ISSUE_EMPTY_DOSTEP_US:g}), ours {fm['doStep_only_us']:.2f} us; "
+          f"{TARGET_REALTIME_FACTOR:g}x real time there (<= {1e3 / TARGET_REALTIME_FACTOR:g} us per "
+          f"step) is <= {us_target_here:.1f} us per step here")
+    print("  case     host calls                      ours [us/step]  realtime x  "
+          "scaled x  empty slave [us]")
     for name in ("typical", "all"):
-        c = fm[name]
-        print(f"  {name:20s} {c['us_per_step']:14.1f}  {c['realtime_factor']:10.0f}  "
-              f"{c['empty_us_per_step']:16.1f}  {c['doStep_only_us']:17.1f}  "
-              f"{c['empty_doStep_only_us']:5.1f}")
+        for style, text in (("lists", "setReal/getReal (lists)"),
+                            ("arrays", "fmi2SetReal/fmi2GetReal (arrays)")):
+            c = fm[f"{name}_{style}"]
+            c["realtime_factor_scaled"] = c["realtime_factor"] * fmu_factor
+            print(f"  {name:8s} {text:32s} {c['us_per_step']:14.1f}  "
+                  f"{c['realtime_factor']:10.0f}  {c['realtime_factor_scaled']:8.0f}  "
+                  f"{c['empty_us_per_step']:16.1f}")
     kern_us = k["kernel_ns_per_mode_step"] * fm["mode_steps_per_step"] * 1e-3
-    print(f"  core alone (set_inputs + step): {fm['core_us_per_step']:.1f} us per step, of which "
+    print(f"  core alone (inputs, step, outputs): {fm['core_us_per_step']:.1f} us per step, of which "
           f"the kernel about {kern_us:.1f} us")
     si = bench_slave_internals(params, fmu_path, quick)
     print("  inside our slave (no FMI wrapper): " + ", ".join(f"{k_}: {v:.1f}"
@@ -553,14 +688,16 @@ def main(argv=None) -> int:
           f"{ref['speedup_kernel_only']:.0f}x")
     print(f"\n(total {time.perf_counter() - t_all:.0f} s; work folder {work})")
 
+    typ, typ_arrays = fm["typical_lists"], fm["typical_arrays"]
     summary = {
         "kernel": k["kernel"],
         "kernel_ns_per_mode_step": round(k["kernel_ns_per_mode_step"], 2),
         "fallback_ns_per_mode_step": round(k["fallback_ns_per_mode_step"], 1),
-        "fmu_realtime_factor": round(fm["typical"]["realtime_factor"], 1),
-        "fmu_realtime_factor_all_variables": round(fm["all"]["realtime_factor"], 1),
-        "fmu_us_per_step": round(fm["typical"]["us_per_step"], 2),
-        "empty_fmu_us_per_step": round(fm["typical"]["empty_us_per_step"], 2),
+        "fmu_realtime_factor": round(typ["realtime_factor"], 1),
+        "fmu_realtime_factor_arrays": round(typ_arrays["realtime_factor"], 1),
+        "fmu_realtime_factor_all_variables": round(fm["all_lists"]["realtime_factor"], 1),
+        "fmu_us_per_step": round(typ["us_per_step"], 2),
+        "empty_fmu_us_per_step": round(typ["empty_us_per_step"], 2),
         "core_us_per_step": round(fm["core_us_per_step"], 2),
         "speedup_vs_reference": round(ref["speedup_vs_reference"], 1),
         "reference_rtol_compared": ref["chosen_rtol"],
@@ -574,6 +711,16 @@ def main(argv=None) -> int:
         "ns_per_mode_step_by_steps_per_period": {str(s): round(v["ns_per_mode_step"], 2)
                                                  for s, v in sc["steps_per_period"].items()},
         "ns_per_mode_step_full_stack_512": round(sc["full_stack"]["ns_per_mode_step"], 1),
+        # the machine against the issue's (its anchors measured in this run; see the top)
+        "bare_joint_ns": round(bare_ns, 2),
+        "empty_doStep_us": round(fm["empty_doStep_only_us"], 3),
+        "machine_factor_kernel": round(kernel_factor, 3),
+        "machine_factor_fmu": round(fmu_factor, 3),
+        "kernel_ns_per_mode_step_scaled": round(k["kernel_ns_per_mode_step"] / kernel_factor, 2),
+        "fmu_realtime_factor_scaled": round(typ["realtime_factor_scaled"], 1),
+        "fmu_realtime_factor_arrays_scaled": round(typ_arrays["realtime_factor_scaled"], 1),
+        "cold_start_s_scaled": round(cold["warm_cache"]["instantiate_to_first_step_s"]
+                                     / fmu_factor, 3),
         "quick": quick,
     }
     print(json.dumps(summary))
