@@ -5,7 +5,7 @@
 * a sweep of builds x cases x controller: plain loop in this process vs Dask LocalCluster
   (2 worker processes), including the cluster start.
 
-    /work/venv0/bin/python tests/bench/bench_system.py [--quick]
+    .venv/bin/python tests/bench/bench_system.py [--quick]
 
 The last line is one JSON object with the measured times and ratios.
 """
