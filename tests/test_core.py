@@ -350,11 +350,14 @@ def test_inputs_by_position_equal_inputs_by_group():
     for k in range(80):
         F, f1, f2, ab = 30.0 * math.sin(0.3 * k), 0.2 * math.cos(0.2 * k), -0.1, 9.0 * math.sin(0.11 * k)
         by_group.set_inputs(point_forces=[F], modal_forces=[f1, f2], base_acc=ab)
-        if k % 2:   # every input at once, or one group at a time
+        if k % 3 == 0:      # every input at once, one group at a time, or one by one
             by_pos.set_input_values(pos, [F, f1, f2, ab])
-        else:
+        elif k % 3 == 1:
             by_pos.set_input_values(pos[:1], [F])
             by_pos.set_input_values(pos[1:], [f1, f2, ab])
+        else:
+            for p, x in zip(pos, [F, f1, f2, ab]):
+                by_pos.set_input_value(p, x)
         assert np.array_equal(by_pos.output_values(), by_group.output_values())
         assert by_group.step(1e-3) == by_pos.step(1e-3) == (True, "")
     assert np.array_equal(by_pos.output_values(), by_group.output_values())
@@ -378,13 +381,38 @@ def test_bad_inputs_by_position_rejected_and_nothing_changed(positions, values, 
     assert np.array_equal(sim.output_values(), before)
 
 
+@pytest.mark.parametrize("position,value,msg", [
+    (0, float("nan"), "point_forces[drive] = nan: must be finite"),
+    (2, -1e300, "modal_forces[m2] = -1e+300: must be finite with |value| <="),
+    (3, float("inf"), "base_acc = inf: must be finite"),
+    (4, 1.0, "input position 4: allowed are integers 0..3"),
+    (0, "1", None),     # a numeric string is a number here, as in set_inputs
+])
+def test_single_input_by_position_checked_like_the_others(position, value, msg):
+    sim = ModalSimulator(_positional_set())
+    sim.set_input_value(0, 2.0)
+    before = sim.output_values().copy()
+    if msg is None:
+        sim.set_input_value(position, value)
+        assert sim.output_values()[sim.output_index("point_a", 0)] != \
+            before[sim.output_index("point_a", 0)]
+        return
+    with pytest.raises(InputError) as e:
+        sim.set_input_value(position, value)
+    assert msg in str(e.value)
+    assert np.array_equal(sim.output_values(), before)
+
+
 def test_base_input_by_position_needs_a_base():
     sim = ModalSimulator(ONE)
     with pytest.raises(InputError, match="no \\[base\\] mounting"):
         sim.input_index("base_acc")
     with pytest.raises(InputError, match="no \\[base\\] mounting; only 0 is allowed"):
         sim.set_input_values([1], [2.0])     # the base slot of the input vector
+    with pytest.raises(InputError, match="no \\[base\\] mounting; only 0 is allowed"):
+        sim.set_input_value(1, 2.0)
     sim.set_input_values([1], [0.0])
+    sim.set_input_value(1, 0.0)
     with pytest.raises(InputError, match="needs an index in 0..0"):
         sim.input_index("modal_forces", 1)
     with pytest.raises(InputError, match="unknown input 'force'; allowed: point_forces, modal_forces"):

@@ -242,6 +242,7 @@ class ModalSimulator:
         # Python floats without NumPy's per-item cost
         self._ubuf = array.array("d", bytes(8 * (self._n_in + n + 1)))
         self._u = np.frombuffer(self._ubuf, dtype=float)
+        self._base_pos = self._n_in + n   # the base acceleration's place in the input vector
         self._mp = np.zeros((self._n_in + self._n_out + 1, n + 1))
         self._mp[: self._n_in, :n] = m.phi_in
         self._mp[: self._n_in, n] = m.r_in
@@ -382,6 +383,22 @@ class ModalSimulator:
             ubuf[p] = x
         self._fresh = False
 
+    def set_input_value(self, position: int, value: float) -> None:
+        """Set one held input by position (from :meth:`input_index`): :meth:`set_input_values`
+        for a single value, the cheapest way in (a host sets a few inputs every step).
+
+        Raises
+        ------
+        InputError
+            As :meth:`set_input_values`; nothing is changed then.
+        """
+        if type(position) is int and type(value) is float and 0 <= position < self._base_pos \
+                and -MAX_INPUT <= value <= MAX_INPUT:
+            self._ubuf[position] = value
+            self._fresh = False
+        else:   # the base acceleration, other types, refused values: the general path decides
+            self.set_input_values((position,), (value,))
+
     def _input_problem(self, p, x) -> str:
         """What is wrong with value ``x`` at input position ``p`` (for an error message)."""
         last = self._u.shape[0] - 1
@@ -465,7 +482,7 @@ class ModalSimulator:
             return False, f"step size {dt!r}: must be finite and >= 0"
         if dt == 0.0:
             return True, ""
-        n_sub, coef = self._plan(dt)
+        n_sub, coef = self._plans.get(dt) or self._plan(dt)
         try:
             check = self._step_all(n_sub, coef, *self._step_args)
             ok = math.isfinite(check)

@@ -141,14 +141,22 @@ class JointSlave(Fmi2Slave):
             return math.nan
 
     def set_real(self, vrs, values) -> None:
-        """Set the variables ``vrs`` (fmi2SetReal).  Inputs are kept and handed to the simulator
-        at the next doStep or output read; parameters only before initialization ends; outputs
-        and unknown value references are refused with an error-status message."""
-        inputs, stored, pending = self._input_vrs, self._values, self._pending
+        """Set the variables ``vrs`` (fmi2SetReal).  A valid input goes to the simulator at once;
+        one set before the simulator exists, or refused by it, waits for the next doStep (which
+        reports a refused one, names it, and does not step) or output read.  Parameters only
+        before initialization ends; outputs and unknown value references are refused with an
+        error-status message."""
+        inputs, stored, pending, sim = self._input_vrs, self._values, self._pending, self._sim
         for vr, value in zip(vrs, values):
             if vr in inputs:
                 stored[vr] = value
-                pending.add(vr)
+                if sim is None or pending:
+                    pending.add(vr)     # handed over in order at the next doStep or read
+                else:
+                    try:
+                        sim.set_input_value(self._in_pos[vr], value)
+                    except JointFmuError:
+                        pending.add(vr)  # refused, with its FMU name, at the next doStep
             else:
                 self._set_value(vr, value)
 
@@ -162,16 +170,13 @@ class JointSlave(Fmi2Slave):
             self.log(f"{var.name} is an output and cannot be set (value {value!r} ignored)",
                      Fmi2Status.error)
             return
-        if var.is_parameter and self._initialized:
+        if self._initialized:
             self.log(f"parameter {var.name} can only be set before initialization ends "
                      f"(value {value!r} ignored); instantiate anew or reset to change it",
                      Fmi2Status.error)
             return
-        self._values[vr] = float(value)
-        if var.is_parameter:
-            self._settings_changed = True
-        else:
-            self._pending.add(vr)
+        self._values[vr] = float(value)     # a parameter (set_real itself takes the inputs)
+        self._settings_changed = True
 
     # ------------------------------------------------------------------------- life cycle
     def exit_initialization_mode(self):
