@@ -642,7 +642,7 @@ def main(argv=None) -> int:
           f"{TARGET_REALTIME_FACTOR:g}x real time there (<= {1e3 / TARGET_REALTIME_FACTOR:g} us per "
           f"step) is <= {us_target_here:.1f} us per step here")
     print("  case     host calls                      ours [us/step]  realtime x  "
-          "scaled x  empty slave [us]")
+          "scaled x  empty slave [us]  ours - empty [us]")
     for name in ("typical", "all"):
         for style, text in (("lists", "setReal/getReal (lists)"),
                             ("arrays", "fmi2SetReal/fmi2GetReal (arrays)")):
@@ -650,7 +650,8 @@ def main(argv=None) -> int:
             c["realtime_factor_scaled"] = c["realtime_factor"] * fmu_factor
             print(f"  {name:8s} {text:32s} {c['us_per_step']:14.1f}  "
                   f"{c['realtime_factor']:10.0f}  {c['realtime_factor_scaled']:8.0f}  "
-                  f"{c['empty_us_per_step']:16.1f}")
+                  f"{c['empty_us_per_step']:16.1f}  "
+                  f"{c['us_per_step'] - c['empty_us_per_step']:17.1f}")
     kern_us = k["kernel_ns_per_mode_step"] * fm["mode_steps_per_step"] * 1e-3
     print(f"  core alone (inputs, step, outputs): {fm['core_us_per_step']:.1f} us per step, of which "
           f"the kernel about {kern_us:.1f} us")
