@@ -69,9 +69,12 @@ KT, FS, CHI, PHIMAX, CF, CD, CUV, CK, DVPM, UVPM, MERGE_TOL, E2, KINF, SPOINT = 
 NJC = 14
 
 # Indices into the per-mode scalar joint state ``js`` (shape (N, NJS)).
+# ROOT_U, ROOT_F, ROOT_E, ROOT_C: the current branch root (u_r, F_r, U_r, c), and CLOSE_U the
+# point where the motion closes the innermost loop (wiping-out), both cached from the stack top by
+# :func:`_set_root` whenever the stack changes, so the hot path does not read the stack.
 (U_PREV, F_PREV, E_PREV, D_ACC, D_PREV, DIRN, DEPTH, N_MERGE, N_FORCED, LOW, KTAN, KCURV,
- ONSET_HI, ONSET_LO) = range(14)
-NJS = 14
+ ONSET_HI, ONSET_LO, ROOT_U, ROOT_F, ROOT_E, ROOT_C, CLOSE_U) = range(19)
+NJS = 19
 
 
 def _branch(x, jc, i):
@@ -94,20 +97,18 @@ def _branch(x, jc, i):
     return jc[i, FS], jc[i, DVPM] + jc[i, FS] * (x - jc[i, PHIMAX]), jc[i, UVPM], 0.0, 0.0
 
 
-def _root(i, js, stk):
-    """Current branch root ``(u_r, F_r, U_r, c)``; (0, 0, 0, 1) on the virgin curve."""
-    d = int(js[i, DEPTH])
-    if d == 0:
-        return 0.0, 0.0, 0.0, 1.0
-    return stk[i, d - 1, 0], stk[i, d - 1, 1], stk[i, d - 1, 2], 2.0
+def _root(i, js):
+    """Current branch root ``(u_r, F_r, U_r, c)``; (0, 0, 0, 1) on the virgin curve (cached in
+    ``js`` by :func:`_set_root`)."""
+    return js[i, ROOT_U], js[i, ROOT_F], js[i, ROOT_E], js[i, ROOT_C]
 
 
-def _eval_at(i, u, jc, js, stk):
+def _eval_at(i, u, jc, js):
     """Joint force, total dissipation, stored energy and tangent at ``u`` on the current branch.
 
     Also leaves the tangent and its slope d(k_t)/du there in ``js[i, KTAN]``, ``js[i, KCURV]``.
     """
-    ur, fr, er, c = _root(i, js, stk)
+    ur, fr, er, c = _root(i, js)
     du = u - ur
     half = c == 2.0
     x = abs(du) * 0.5 if half else abs(du)  # |du| / c, exactly
@@ -137,11 +138,23 @@ def _backup_from(i, j0, js, stk, bk):
         js[i, LOW] = j0
 
 
-def _set_onset(i, jc, js, stk):
-    """Where the current branch enters macro-slip, moving up (``ONSET_HI``) or down
-    (``ONSET_LO``): u_r +- c phimax.  Kept with the branch root, so the time step can tell cheaply
-    whether a step may cross it (see :func:`_onset_correction`)."""
-    ur, fr, er, c = _root(i, js, stk)
+def _set_root(i, jc, js, stk):
+    """Cache the branch root from the stack top after the stack changed: ``ROOT_U``, ``ROOT_F``,
+    ``ROOT_E``, ``ROOT_C`` (see :func:`_root`); the closure point ``CLOSE_U`` of the innermost loop,
+    u_{n-1} (or -u_1 with one reversal; unused on the virgin curve); and where the branch enters
+    macro-slip, moving up (``ONSET_HI``) or down (``ONSET_LO``): u_r +- c phimax, so the time
+    step can tell cheaply whether a step may cross it (see :func:`_onset_correction`)."""
+    d = int(js[i, DEPTH])
+    if d == 0:
+        ur, fr, er, c = 0.0, 0.0, 0.0, 1.0
+        js[i, CLOSE_U] = 0.0
+    else:
+        ur, fr, er, c = stk[i, d - 1, 0], stk[i, d - 1, 1], stk[i, d - 1, 2], 2.0
+        js[i, CLOSE_U] = stk[i, d - 2, 0] if d >= 2 else -stk[i, 0, 0]
+    js[i, ROOT_U] = ur
+    js[i, ROOT_F] = fr
+    js[i, ROOT_E] = er
+    js[i, ROOT_C] = c
     js[i, ONSET_HI] = ur + c * jc[i, PHIMAX]
     js[i, ONSET_LO] = ur - c * jc[i, PHIMAX]
 
@@ -155,8 +168,8 @@ def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
     """
     _backup_from(i, new_depth, js, stk, bk)
     js[i, DEPTH] = new_depth
-    _set_onset(i, jc, js, stk)
-    ur, fr, er, c = _root(i, js, stk)
+    _set_root(i, jc, js, stk)
+    ur, fr, er, c = _root(i, js)
     x = abs(u - ur) / c
     fbb, dv, uv, kt, kc = _branch(x, jc, i)
     js[i, D_ACC] = d_total - c * dv
@@ -188,6 +201,34 @@ def _forced_merge(i, jc, js, stk, bk):
     js[i, DEPTH] = depth - 2.0
 
 
+def _reverse(i, u0, jc, js, stk, bk):
+    """Push the reversal at ``u0`` (the joint's last position) onto the stack of joint ``i``;
+    then drop the pair (u_{n-1}, u_n) if the loop it closes is too small to matter."""
+    cap = stk.shape[1]
+    depth = int(js[i, DEPTH])
+    if depth >= cap:
+        # full: drop the interior pair that matters least (counted; see module docstring)
+        _forced_merge(i, jc, js, stk, bk)
+        js[i, N_FORCED] += 1.0
+        depth -= 2
+    stk[i, depth, 0] = u0
+    stk[i, depth, 1] = js[i, F_PREV]
+    stk[i, depth, 2] = js[i, E_PREV]
+    js[i, DEPTH] = depth + 1.0
+    _set_root(i, jc, js, stk)
+    js[i, D_ACC] = js[i, D_PREV]
+    # a loop too small to matter: drop the pair (u_{n-1}, u_n) if the branch from u_{n-2}
+    # passes within merge_tol of F_n at u_n
+    if depth >= 2:
+        ur = stk[i, depth - 2, 0]
+        du2 = u0 - ur
+        fbb, dv, uv, kt, kc = _branch(abs(du2) * 0.5, jc, i)
+        falt = stk[i, depth - 2, 1] + (2.0 if du2 >= 0.0 else -2.0) * fbb
+        if abs(falt - js[i, F_PREV]) <= jc[i, MERGE_TOL]:
+            _lower_depth(i, depth - 1, u0, js[i, D_PREV], jc, js, stk, bk)
+            js[i, N_MERGE] += 1.0
+
+
 def joint_move(i, u, jc, js, stk, bk):
     """Move joint ``i`` monotonically from ``js[i, U_PREV]`` to ``u``; update its memory.
 
@@ -214,51 +255,21 @@ def joint_move(i, u, jc, js, stk, bk):
     u0 = js[i, U_PREV]
     step = u - u0
     if step == 0.0:
-        f, d, e, kt = _eval_at(i, u, jc, js, stk)
+        f, d, e, kt = _eval_at(i, u, jc, js)
         return kt
     dnew = 1.0 if step > 0.0 else -1.0
     dirn = js[i, DIRN]
-    cap = stk.shape[1]
     if dirn != 0.0 and dnew != dirn:
-        # reversal at u0: push it
-        depth = int(js[i, DEPTH])
-        if depth >= cap:
-            # full: drop the interior pair that matters least (counted; see module docstring)
-            _forced_merge(i, jc, js, stk, bk)
-            js[i, N_FORCED] += 1.0
-            depth -= 2
-        stk[i, depth, 0] = u0
-        stk[i, depth, 1] = js[i, F_PREV]
-        stk[i, depth, 2] = js[i, E_PREV]
-        js[i, DEPTH] = depth + 1.0
-        _set_onset(i, jc, js, stk)
-        js[i, D_ACC] = js[i, D_PREV]
-        # a loop too small to matter: drop the pair (u_{n-1}, u_n) if the branch from u_{n-2}
-        # passes within merge_tol of F_n at u_n
-        if depth >= 2:
-            ur = stk[i, depth - 2, 0]
-            du2 = u0 - ur
-            fbb, dv, uv, kt, kc = _branch(abs(du2) * 0.5, jc, i)
-            falt = stk[i, depth - 2, 1] + (2.0 if du2 >= 0.0 else -2.0) * fbb
-            if abs(falt - js[i, F_PREV]) <= jc[i, MERGE_TOL]:
-                _lower_depth(i, depth - 1, u0, js[i, D_PREV], jc, js, stk, bk)
-                js[i, N_MERGE] += 1.0
+        _reverse(i, u0, jc, js, stk, bk)
     js[i, DIRN] = dnew
-    # wiping-out: pop every loop the motion has closed
-    while True:
+    # wiping-out: pop every loop the motion has closed (closure point u_{n-1}, or -u_1)
+    while js[i, DEPTH] != 0.0 and not (u - js[i, CLOSE_U]) * dnew <= 0.0:
+        uc = js[i, CLOSE_U]
         depth = int(js[i, DEPTH])
-        if depth == 0:
-            break
-        if depth >= 2:
-            uc = stk[i, depth - 2, 0]
-        else:
-            uc = -stk[i, 0, 0]
-        if (u - uc) * dnew <= 0.0:
-            break
         # dissipation at the closure point on the branch that closes
-        f, d, e, kt = _eval_at(i, uc, jc, js, stk)
+        f, d, e, kt = _eval_at(i, uc, jc, js)
         _lower_depth(i, depth - 2 if depth >= 2 else 0, uc, d, jc, js, stk, bk)
-    f, d, e, kt = _eval_at(i, u, jc, js, stk)
+    f, d, e, kt = _eval_at(i, u, jc, js)
     js[i, U_PREV] = u
     js[i, F_PREV] = f
     js[i, E_PREV] = e
@@ -285,6 +296,11 @@ def joint_set_virgin(i, u, jc, js):
     js[i, KCURV] = kc * s
     js[i, ONSET_HI] = jc[i, PHIMAX]
     js[i, ONSET_LO] = -jc[i, PHIMAX]
+    js[i, ROOT_U] = 0.0
+    js[i, ROOT_F] = 0.0
+    js[i, ROOT_E] = 0.0
+    js[i, ROOT_C] = 1.0
+    js[i, CLOSE_U] = 0.0
 
 
 def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
@@ -297,16 +313,15 @@ def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
     terms).  Returns the corrected displacement and the velocity change.
     """
     dirn = 1.0 if v0 > 0.0 else -1.0
-    ur, fr, er, c = _root(i, js, stk)
+    ur, fr, er, c = _root(i, js)
     x0 = abs(q0 - ur) * (0.5 if c == 2.0 else 1.0)  # |q0 - ur| / c, exactly
     if x0 >= jc[i, PHIMAX] or (q0 - ur) * dirn < 0.0:
         return q1, 0.0
     us = ur + dirn * c * jc[i, PHIMAX]
     if (q1 - us) * dirn <= 0.0:
         return q1, 0.0
-    depth = int(js[i, DEPTH])
-    if depth >= 1:
-        uc = stk[i, depth - 2, 0] if depth >= 2 else -stk[i, 0, 0]
+    if js[i, DEPTH] != 0.0:
+        uc = js[i, CLOSE_U]
         if (us - uc) * dirn > 0.0:
             return q1, 0.0  # the branch closes before its onset
     # crossing time from q0 + v0 t + a0 t^2 / 2 = us (root nearest 0 in [0, h])

@@ -53,7 +53,8 @@ DEFAULT_STACK_CAPACITY = 4096
 #: Largest magnitude accepted for an input (keeps every intermediate value finite).
 MAX_INPUT = 1e12
 
-_STATE_VERSION = 2
+#: 3: the joint state ``js`` also caches the branch root and closure point (_kernel.NJS = 19).
+_STATE_VERSION = 3
 
 
 def _joint_constants(model: ModalModel, merge_tol: float) -> np.ndarray:
@@ -536,7 +537,7 @@ class ModalSimulator:
         except Exception as exc:  # noqa: BLE001
             raise InputError(f"FMU state: not a jointfmu state ({exc})") from exc
         if (int(parts.get("version", -1)) != _STATE_VERSION or parts["st"].shape != self._st.shape
-                or parts["u"].shape != self._u.shape):
+                or parts["js"].shape != self._js.shape or parts["u"].shape != self._u.shape):
             raise InputError("FMU state: made by another structure or version of jointfmu")
         depth = parts["stk"].shape[1]
         if depth > self._cap:
