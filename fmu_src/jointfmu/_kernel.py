@@ -72,9 +72,11 @@ NJC = 14
 # ROOT_U, ROOT_F, ROOT_E, ROOT_C: the current branch root (u_r, F_r, U_r, c), and CLOSE_U the
 # point where the motion closes the innermost loop (wiping-out), both cached from the stack top by
 # :func:`_set_root` whenever the stack changes, so the hot path does not read the stack.
+# P_PREV: the power x^(chi+2) at U_PREV, from which :func:`_energies` brings E_PREV and D_PREV
+# up to date when they are needed (the time step does not compute them at every sub-step).
 (U_PREV, F_PREV, E_PREV, D_ACC, D_PREV, DIRN, DEPTH, N_MERGE, N_FORCED, LOW, KTAN, KCURV,
- ONSET_HI, ONSET_LO, ROOT_U, ROOT_F, ROOT_E, ROOT_C, CLOSE_U) = range(19)
-NJS = 19
+ ONSET_HI, ONSET_LO, ROOT_U, ROOT_F, ROOT_E, ROOT_C, CLOSE_U, P_PREV) = range(20)
+NJS = 20
 
 
 def _branch(x, jc, i):
@@ -82,19 +84,37 @@ def _branch(x, jc, i):
 
     Returns ``(F_bb, Dv, Uv, k_t, dk_t/dx)`` for mode ``i``; one power evaluation.
     """
+    fbb, kt, kc, p = _branch_force(x, jc, i)
+    dv, uv = _branch_energy(x, p, jc, i)
+    return fbb, dv, uv, kt, kc
+
+
+def _branch_force(x, jc, i):
+    """The force part of :func:`_branch`: ``(F_bb, k_t, dk_t/dx, p)`` with the power
+    p = x^(chi+2) (0 where it is not needed, x = 0 or beyond phimax)."""
     if x < jc[i, PHIMAX]:
         if x > 0.0:
             p = math.pow(x, jc[i, E2])
             fbb = jc[i, KT] * x - jc[i, CF] * p
-            dv = jc[i, CD] * x * p
-            uv = 0.5 * jc[i, KT] * x * x - jc[i, CUV] * x * p
             r = 1.0 / x
             y = p * r  # x^(chi+1)
             kt = jc[i, KT] - jc[i, CK] * y
             kc = -jc[i, CK] * (jc[i, E2] - 1.0) * y * r
-            return fbb, dv, uv, kt, kc
-        return 0.0, 0.0, 0.0, jc[i, KT], 0.0
-    return jc[i, FS], jc[i, DVPM] + jc[i, FS] * (x - jc[i, PHIMAX]), jc[i, UVPM], 0.0, 0.0
+            return fbb, kt, kc, p
+        return 0.0, jc[i, KT], 0.0, 0.0
+    return jc[i, FS], 0.0, 0.0, 0.0
+
+
+def _branch_energy(x, p, jc, i):
+    """The energy part of :func:`_branch`: ``(Dv, Uv)`` at ``x`` from the power ``p`` that
+    :func:`_branch_force` returned there."""
+    if x < jc[i, PHIMAX]:
+        if x > 0.0:
+            dv = jc[i, CD] * x * p
+            uv = 0.5 * jc[i, KT] * x * x - jc[i, CUV] * x * p
+            return dv, uv
+        return 0.0, 0.0
+    return jc[i, DVPM] + jc[i, FS] * (x - jc[i, PHIMAX]), jc[i, UVPM]
 
 
 def _root(i, js):
@@ -108,22 +128,48 @@ def _eval_at(i, u, jc, js):
 
     Also leaves the tangent and its slope d(k_t)/du there in ``js[i, KTAN]``, ``js[i, KCURV]``.
     """
+    f, kt, p = _eval_force(i, u, jc, js)
+    d, e = _eval_energy(i, u, f, p, jc, js)
+    return f, d, e, kt
+
+
+def _eval_force(i, u, jc, js):
+    """The force part of :func:`_eval_at`: joint force, tangent and the power p at ``u``."""
     ur, fr, er, c = _root(i, js)
     du = u - ur
     half = c == 2.0
     x = abs(du) * 0.5 if half else abs(du)  # |du| / c, exactly
-    fbb, dv, uv, kt, kc = _branch(x, jc, i)
+    fbb, kt, kc, p = _branch_force(x, jc, i)
     s = 1.0 if du >= 0.0 else -1.0
     f = fr + s * c * fbb
+    js[i, KCURV] = kc * s * 0.5 if half else kc * s
+    js[i, KTAN] = kt
+    return f, kt, p
+
+
+def _eval_energy(i, u, f, p, jc, js):
+    """The energy part of :func:`_eval_at`: total dissipation and stored energy at ``u``, where
+    :func:`_eval_force` gave the force ``f`` and the power ``p``."""
+    ur, fr, er, c = _root(i, js)
+    du = u - ur
+    half = c == 2.0
+    x = abs(du) * 0.5 if half else abs(du)
+    dv, uv = _branch_energy(x, p, jc, i)
     d = js[i, D_ACC] + c * dv
     if half:
         e = er + 0.5 * du * (f + fr)
-        js[i, KCURV] = kc * s * 0.5
     else:
         e = uv
-        js[i, KCURV] = kc * s
-    js[i, KTAN] = kt
-    return f, d, e, kt
+    return d, e
+
+
+def _energies(i, jc, js):
+    """Bring ``js[i, E_PREV]`` and ``js[i, D_PREV]`` up to date with the joint's position, force
+    and power (the time step leaves them behind; see :func:`_move`)."""
+    u = js[i, U_PREV]
+    d, e = _eval_energy(i, u, js[i, F_PREV], js[i, P_PREV], jc, js)
+    js[i, E_PREV] = e
+    js[i, D_PREV] = d
 
 
 def _backup_from(i, j0, js, stk, bk):
@@ -204,6 +250,7 @@ def _forced_merge(i, jc, js, stk, bk):
 def _reverse(i, u0, jc, js, stk, bk):
     """Push the reversal at ``u0`` (the joint's last position) onto the stack of joint ``i``;
     then drop the pair (u_{n-1}, u_n) if the loop it closes is too small to matter."""
+    _energies(i, jc, js)
     cap = stk.shape[1]
     depth = int(js[i, DEPTH])
     if depth >= cap:
@@ -252,10 +299,18 @@ def joint_move(i, u, jc, js, stk, bk):
     tangent : float
         Tangent stiffness dF/du at ``u``.
     """
+    kt = _move(i, u, jc, js, stk, bk)
+    _energies(i, jc, js)
+    return kt
+
+
+def _move(i, u, jc, js, stk, bk):
+    """:func:`joint_move` without bringing ``E_PREV`` and ``D_PREV`` up to date (the time step
+    calls :func:`_energies` once at the end of its step instead)."""
     u0 = js[i, U_PREV]
     step = u - u0
     if step == 0.0:
-        f, d, e, kt = _eval_at(i, u, jc, js)
+        f, kt, p = _eval_force(i, u, jc, js)
         return kt
     dnew = 1.0 if step > 0.0 else -1.0
     dirn = js[i, DIRN]
@@ -269,11 +324,10 @@ def joint_move(i, u, jc, js, stk, bk):
         # dissipation at the closure point on the branch that closes
         f, d, e, kt = _eval_at(i, uc, jc, js)
         _lower_depth(i, depth - 2 if depth >= 2 else 0, uc, d, jc, js, stk, bk)
-    f, d, e, kt = _eval_at(i, u, jc, js)
+    f, kt, p = _eval_force(i, u, jc, js)
     js[i, U_PREV] = u
     js[i, F_PREV] = f
-    js[i, E_PREV] = e
-    js[i, D_PREV] = d
+    js[i, P_PREV] = p
     return kt
 
 
@@ -283,8 +337,10 @@ def joint_set_virgin(i, u, jc, js):
     The dissipation counter starts at zero here (the loading is before the record starts).
     """
     x = abs(u)
-    fbb, dv, uv, kt, kc = _branch(x, jc, i)
+    fbb, kt, kc, p = _branch_force(x, jc, i)
+    dv, uv = _branch_energy(x, p, jc, i)
     s = 1.0 if u >= 0.0 else -1.0
+    js[i, P_PREV] = p
     js[i, U_PREV] = u
     js[i, F_PREV] = s * fbb
     js[i, E_PREV] = uv
@@ -372,8 +428,8 @@ def _substep(i, q0, v0, e_in, e_visc, fi, cv, coef, jc, js, stk, bk):
             ue = max(ue, q0, q1)
         else:
             ue = min(ue, q0, q1)
-        joint_move(i, ue, jc, js, stk, bk)
-    joint_move(i, q1, jc, js, stk, bk)
+        _move(i, ue, jc, js, stk, bk)
+    _move(i, q1, jc, js, stk, bk)
     e_in += fi * (q1 - q0)
     e_visc += cv * h * 0.5 * (v0 * v0 + v1 * v1)
     return q1, v1, e_in, e_visc
@@ -432,6 +488,7 @@ def advance(n_sub, coef, f, st, jc, js, stk, bk):
             st[b, 0], st[b, 1], st[b, 3], st[b, 4] = qb, vb, ib, wb
     check = 0.0
     for i in range(n_modes):
+        _energies(i, jc, js)
         check += st[i, 0] + st[i, 1] + js[i, F_PREV]
     return check
 

@@ -53,7 +53,8 @@ DEFAULT_STACK_CAPACITY = 4096
 #: Largest magnitude accepted for an input (keeps every intermediate value finite).
 MAX_INPUT = 1e12
 
-#: 3: the joint state ``js`` also caches the branch root and closure point (_kernel.NJS = 19).
+#: 3: the joint state ``js`` also caches the branch root, the closure point and the power
+#: x^(chi+2) at the joint's position (_kernel.NJS = 20).
 _STATE_VERSION = 3
 
 
