@@ -65,8 +65,9 @@ import math
 COLD = ("_onset_correction",)
 
 # Indices into the per-mode constant table ``jc`` (shape (N, NJC)).
-KT, FS, CHI, PHIMAX, CF, CD, CUV, CK, DVPM, UVPM, MERGE_TOL, E2, KINF, SPOINT = range(14)
-NJC = 14
+# (CKC = -CK (E2 - 1), the factor of the tangent's slope, computed once.)
+KT, FS, CHI, PHIMAX, CF, CD, CUV, CK, DVPM, UVPM, MERGE_TOL, E2, KINF, SPOINT, CKC = range(15)
+NJC = 15
 
 # Indices into the per-mode scalar joint state ``js`` (shape (N, NJS)).
 # ROOT_U, ROOT_F, ROOT_E, ROOT_C: the current branch root (u_r, F_r, U_r, c), and CLOSE_U the
@@ -99,7 +100,7 @@ def _branch_force(x, jc, i):
             r = 1.0 / x
             y = p * r  # x^(chi+1)
             kt = jc[i, KT] - jc[i, CK] * y
-            kc = -jc[i, CK] * (jc[i, E2] - 1.0) * y * r
+            kc = jc[i, CKC] * y * r  # CKC = -CK (E2 - 1)
             return fbb, kt, kc, p
         return 0.0, jc[i, KT], 0.0, 0.0
     return jc[i, FS], 0.0, 0.0, 0.0

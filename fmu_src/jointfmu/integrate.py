@@ -75,6 +75,7 @@ def _joint_constants(model: ModalModel, merge_tol: float) -> np.ndarray:
     jc[:, K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
     jc[:, K.CK] = R / (chi + 1.0)
     jc[:, K.E2] = chi + 2.0
+    jc[:, K.CKC] = -jc[:, K.CK] * (jc[:, K.E2] - 1.0)
     pm = phimax ** (chi + 2.0)
     jc[:, K.DVPM] = jc[:, K.CD] * phimax * pm
     jc[:, K.UVPM] = 0.5 * Kt * phimax**2 - jc[:, K.CUV] * phimax * pm
