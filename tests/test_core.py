@@ -225,6 +225,24 @@ def test_step_contract_and_state_round_trip():
         assert np.array_equal(np.r_[other.q, other.qdot, other.joint_force, other.energy_joint], row)
 
 
+
+def test_state_of_another_layout_is_refused():
+    """A state whose joint-state array has another width (an older layout) is refused, not
+    half-restored."""
+    import io
+
+    sim = ModalSimulator(FIVE, kernel="python")
+    sim.step(1e-3)
+    with np.load(io.BytesIO(sim.get_state())) as z:
+        parts = {k: z[k] for k in z.files}
+    before = sim.get_state()
+    parts["js"] = parts["js"][:, :14]
+    buf = io.BytesIO()
+    np.savez(buf, **parts)
+    with pytest.raises(InputError, match="another structure or version"):
+        sim.set_state(buf.getvalue())
+    assert sim.get_state() == before
+
 def test_failed_step_keeps_the_state(monkeypatch):
     """A step that fails midway (here: the kernel raises after doing real work, popping loops
     below the starting depth) is undone exactly, stack included."""

@@ -184,6 +184,7 @@ def _self_check(mod) -> None:
         jc[i, _K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
         jc[i, _K.CK] = R / (chi + 1.0)
         jc[i, _K.E2] = chi + 2.0
+        jc[i, _K.CKC] = -jc[i, _K.CK] * (jc[i, _K.E2] - 1.0)
         jc[i, _K.DVPM] = jc[i, _K.CD] * phimax * pm
         jc[i, _K.UVPM] = 0.5 * kt * phimax**2 - jc[i, _K.CUV] * phimax * pm
         jc[i, _K.MERGE_TOL] = (1e-2 if i == 0 else 0.0) * fs  # large: merges happen

@@ -65,13 +65,19 @@ import math
 COLD = ("_onset_correction",)
 
 # Indices into the per-mode constant table ``jc`` (shape (N, NJC)).
-KT, FS, CHI, PHIMAX, CF, CD, CUV, CK, DVPM, UVPM, MERGE_TOL, E2, KINF, SPOINT = range(14)
-NJC = 14
+# (CKC = -CK (E2 - 1), the factor of the tangent's slope, computed once.)
+KT, FS, CHI, PHIMAX, CF, CD, CUV, CK, DVPM, UVPM, MERGE_TOL, E2, KINF, SPOINT, CKC = range(15)
+NJC = 15
 
 # Indices into the per-mode scalar joint state ``js`` (shape (N, NJS)).
+# ROOT_U, ROOT_F, ROOT_E, ROOT_C: the current branch root (u_r, F_r, U_r, c), and CLOSE_U the
+# point where the motion closes the innermost loop (wiping-out), both cached from the stack top by
+# :func:`_set_root` whenever the stack changes, so the hot path does not read the stack.
+# P_PREV: the power x^(chi+2) at U_PREV, from which :func:`_energies` brings E_PREV and D_PREV
+# up to date when they are needed (the time step does not compute them at every sub-step).
 (U_PREV, F_PREV, E_PREV, D_ACC, D_PREV, DIRN, DEPTH, N_MERGE, N_FORCED, LOW, KTAN, KCURV,
- ONSET_HI, ONSET_LO) = range(14)
-NJS = 14
+ ONSET_HI, ONSET_LO, ROOT_U, ROOT_F, ROOT_E, ROOT_C, CLOSE_U, P_PREV) = range(20)
+NJS = 20
 
 
 def _branch(x, jc, i):
@@ -79,50 +85,92 @@ def _branch(x, jc, i):
 
     Returns ``(F_bb, Dv, Uv, k_t, dk_t/dx)`` for mode ``i``; one power evaluation.
     """
+    fbb, kt, kc, p = _branch_force(x, jc, i)
+    dv, uv = _branch_energy(x, p, jc, i)
+    return fbb, dv, uv, kt, kc
+
+
+def _branch_force(x, jc, i):
+    """The force part of :func:`_branch`: ``(F_bb, k_t, dk_t/dx, p)`` with the power
+    p = x^(chi+2) (0 where it is not needed, x = 0 or beyond phimax)."""
     if x < jc[i, PHIMAX]:
         if x > 0.0:
             p = math.pow(x, jc[i, E2])
             fbb = jc[i, KT] * x - jc[i, CF] * p
-            dv = jc[i, CD] * x * p
-            uv = 0.5 * jc[i, KT] * x * x - jc[i, CUV] * x * p
             r = 1.0 / x
             y = p * r  # x^(chi+1)
             kt = jc[i, KT] - jc[i, CK] * y
-            kc = -jc[i, CK] * (jc[i, E2] - 1.0) * y * r
-            return fbb, dv, uv, kt, kc
-        return 0.0, 0.0, 0.0, jc[i, KT], 0.0
-    return jc[i, FS], jc[i, DVPM] + jc[i, FS] * (x - jc[i, PHIMAX]), jc[i, UVPM], 0.0, 0.0
+            kc = jc[i, CKC] * y * r  # CKC = -CK (E2 - 1)
+            return fbb, kt, kc, p
+        return 0.0, jc[i, KT], 0.0, 0.0
+    return jc[i, FS], 0.0, 0.0, 0.0
 
 
-def _root(i, js, stk):
-    """Current branch root ``(u_r, F_r, U_r, c)``; (0, 0, 0, 1) on the virgin curve."""
-    d = int(js[i, DEPTH])
-    if d == 0:
-        return 0.0, 0.0, 0.0, 1.0
-    return stk[i, d - 1, 0], stk[i, d - 1, 1], stk[i, d - 1, 2], 2.0
+def _branch_energy(x, p, jc, i):
+    """The energy part of :func:`_branch`: ``(Dv, Uv)`` at ``x`` from the power ``p`` that
+    :func:`_branch_force` returned there."""
+    if x < jc[i, PHIMAX]:
+        if x > 0.0:
+            dv = jc[i, CD] * x * p
+            uv = 0.5 * jc[i, KT] * x * x - jc[i, CUV] * x * p
+            return dv, uv
+        return 0.0, 0.0
+    return jc[i, DVPM] + jc[i, FS] * (x - jc[i, PHIMAX]), jc[i, UVPM]
 
 
-def _eval_at(i, u, jc, js, stk):
+def _root(i, js):
+    """Current branch root ``(u_r, F_r, U_r, c)``; (0, 0, 0, 1) on the virgin curve (cached in
+    ``js`` by :func:`_set_root`)."""
+    return js[i, ROOT_U], js[i, ROOT_F], js[i, ROOT_E], js[i, ROOT_C]
+
+
+def _eval_at(i, u, jc, js):
     """Joint force, total dissipation, stored energy and tangent at ``u`` on the current branch.
 
     Also leaves the tangent and its slope d(k_t)/du there in ``js[i, KTAN]``, ``js[i, KCURV]``.
     """
-    ur, fr, er, c = _root(i, js, stk)
+    f, kt, p = _eval_force(i, u, jc, js)
+    d, e = _eval_energy(i, u, f, p, jc, js)
+    return f, d, e, kt
+
+
+def _eval_force(i, u, jc, js):
+    """The force part of :func:`_eval_at`: joint force, tangent and the power p at ``u``."""
+    ur, fr, er, c = _root(i, js)
     du = u - ur
     half = c == 2.0
     x = abs(du) * 0.5 if half else abs(du)  # |du| / c, exactly
-    fbb, dv, uv, kt, kc = _branch(x, jc, i)
+    fbb, kt, kc, p = _branch_force(x, jc, i)
     s = 1.0 if du >= 0.0 else -1.0
     f = fr + s * c * fbb
+    js[i, KCURV] = kc * s * 0.5 if half else kc * s
+    js[i, KTAN] = kt
+    return f, kt, p
+
+
+def _eval_energy(i, u, f, p, jc, js):
+    """The energy part of :func:`_eval_at`: total dissipation and stored energy at ``u``, where
+    :func:`_eval_force` gave the force ``f`` and the power ``p``."""
+    ur, fr, er, c = _root(i, js)
+    du = u - ur
+    half = c == 2.0
+    x = abs(du) * 0.5 if half else abs(du)
+    dv, uv = _branch_energy(x, p, jc, i)
     d = js[i, D_ACC] + c * dv
     if half:
         e = er + 0.5 * du * (f + fr)
-        js[i, KCURV] = kc * s * 0.5
     else:
         e = uv
-        js[i, KCURV] = kc * s
-    js[i, KTAN] = kt
-    return f, d, e, kt
+    return d, e
+
+
+def _energies(i, jc, js):
+    """Bring ``js[i, E_PREV]`` and ``js[i, D_PREV]`` up to date with the joint's position, force
+    and power (the time step leaves them behind; see :func:`_move`)."""
+    u = js[i, U_PREV]
+    d, e = _eval_energy(i, u, js[i, F_PREV], js[i, P_PREV], jc, js)
+    js[i, E_PREV] = e
+    js[i, D_PREV] = d
 
 
 def _backup_from(i, j0, js, stk, bk):
@@ -137,11 +185,23 @@ def _backup_from(i, j0, js, stk, bk):
         js[i, LOW] = j0
 
 
-def _set_onset(i, jc, js, stk):
-    """Where the current branch enters macro-slip, moving up (``ONSET_HI``) or down
-    (``ONSET_LO``): u_r +- c phimax.  Kept with the branch root, so the time step can tell cheaply
-    whether a step may cross it (see :func:`_onset_correction`)."""
-    ur, fr, er, c = _root(i, js, stk)
+def _set_root(i, jc, js, stk):
+    """Cache the branch root from the stack top after the stack changed: ``ROOT_U``, ``ROOT_F``,
+    ``ROOT_E``, ``ROOT_C`` (see :func:`_root`); the closure point ``CLOSE_U`` of the innermost loop,
+    u_{n-1} (or -u_1 with one reversal; unused on the virgin curve); and where the branch enters
+    macro-slip, moving up (``ONSET_HI``) or down (``ONSET_LO``): u_r +- c phimax, so the time
+    step can tell cheaply whether a step may cross it (see :func:`_onset_correction`)."""
+    d = int(js[i, DEPTH])
+    if d == 0:
+        ur, fr, er, c = 0.0, 0.0, 0.0, 1.0
+        js[i, CLOSE_U] = 0.0
+    else:
+        ur, fr, er, c = stk[i, d - 1, 0], stk[i, d - 1, 1], stk[i, d - 1, 2], 2.0
+        js[i, CLOSE_U] = stk[i, d - 2, 0] if d >= 2 else -stk[i, 0, 0]
+    js[i, ROOT_U] = ur
+    js[i, ROOT_F] = fr
+    js[i, ROOT_E] = er
+    js[i, ROOT_C] = c
     js[i, ONSET_HI] = ur + c * jc[i, PHIMAX]
     js[i, ONSET_LO] = ur - c * jc[i, PHIMAX]
 
@@ -155,8 +215,8 @@ def _lower_depth(i, new_depth, u, d_total, jc, js, stk, bk):
     """
     _backup_from(i, new_depth, js, stk, bk)
     js[i, DEPTH] = new_depth
-    _set_onset(i, jc, js, stk)
-    ur, fr, er, c = _root(i, js, stk)
+    _set_root(i, jc, js, stk)
+    ur, fr, er, c = _root(i, js)
     x = abs(u - ur) / c
     fbb, dv, uv, kt, kc = _branch(x, jc, i)
     js[i, D_ACC] = d_total - c * dv
@@ -188,6 +248,35 @@ def _forced_merge(i, jc, js, stk, bk):
     js[i, DEPTH] = depth - 2.0
 
 
+def _reverse(i, u0, jc, js, stk, bk):
+    """Push the reversal at ``u0`` (the joint's last position) onto the stack of joint ``i``;
+    then drop the pair (u_{n-1}, u_n) if the loop it closes is too small to matter."""
+    _energies(i, jc, js)
+    cap = stk.shape[1]
+    depth = int(js[i, DEPTH])
+    if depth >= cap:
+        # full: drop the interior pair that matters least (counted; see module docstring)
+        _forced_merge(i, jc, js, stk, bk)
+        js[i, N_FORCED] += 1.0
+        depth -= 2
+    stk[i, depth, 0] = u0
+    stk[i, depth, 1] = js[i, F_PREV]
+    stk[i, depth, 2] = js[i, E_PREV]
+    js[i, DEPTH] = depth + 1.0
+    _set_root(i, jc, js, stk)
+    js[i, D_ACC] = js[i, D_PREV]
+    # a loop too small to matter: drop the pair (u_{n-1}, u_n) if the branch from u_{n-2}
+    # passes within merge_tol of F_n at u_n
+    if depth >= 2:
+        ur = stk[i, depth - 2, 0]
+        du2 = u0 - ur
+        fbb, dv, uv, kt, kc = _branch(abs(du2) * 0.5, jc, i)
+        falt = stk[i, depth - 2, 1] + (2.0 if du2 >= 0.0 else -2.0) * fbb
+        if abs(falt - js[i, F_PREV]) <= jc[i, MERGE_TOL]:
+            _lower_depth(i, depth - 1, u0, js[i, D_PREV], jc, js, stk, bk)
+            js[i, N_MERGE] += 1.0
+
+
 def joint_move(i, u, jc, js, stk, bk):
     """Move joint ``i`` monotonically from ``js[i, U_PREV]`` to ``u``; update its memory.
 
@@ -211,58 +300,35 @@ def joint_move(i, u, jc, js, stk, bk):
     tangent : float
         Tangent stiffness dF/du at ``u``.
     """
+    kt = _move(i, u, jc, js, stk, bk)
+    _energies(i, jc, js)
+    return kt
+
+
+def _move(i, u, jc, js, stk, bk):
+    """:func:`joint_move` without bringing ``E_PREV`` and ``D_PREV`` up to date (the time step
+    calls :func:`_energies` once at the end of its step instead)."""
     u0 = js[i, U_PREV]
     step = u - u0
     if step == 0.0:
-        f, d, e, kt = _eval_at(i, u, jc, js, stk)
+        f, kt, p = _eval_force(i, u, jc, js)
         return kt
     dnew = 1.0 if step > 0.0 else -1.0
     dirn = js[i, DIRN]
-    cap = stk.shape[1]
     if dirn != 0.0 and dnew != dirn:
-        # reversal at u0: push it
-        depth = int(js[i, DEPTH])
-        if depth >= cap:
-            # full: drop the interior pair that matters least (counted; see module docstring)
-            _forced_merge(i, jc, js, stk, bk)
-            js[i, N_FORCED] += 1.0
-            depth -= 2
-        stk[i, depth, 0] = u0
-        stk[i, depth, 1] = js[i, F_PREV]
-        stk[i, depth, 2] = js[i, E_PREV]
-        js[i, DEPTH] = depth + 1.0
-        _set_onset(i, jc, js, stk)
-        js[i, D_ACC] = js[i, D_PREV]
-        # a loop too small to matter: drop the pair (u_{n-1}, u_n) if the branch from u_{n-2}
-        # passes within merge_tol of F_n at u_n
-        if depth >= 2:
-            ur = stk[i, depth - 2, 0]
-            du2 = u0 - ur
-            fbb, dv, uv, kt, kc = _branch(abs(du2) * 0.5, jc, i)
-            falt = stk[i, depth - 2, 1] + (2.0 if du2 >= 0.0 else -2.0) * fbb
-            if abs(falt - js[i, F_PREV]) <= jc[i, MERGE_TOL]:
-                _lower_depth(i, depth - 1, u0, js[i, D_PREV], jc, js, stk, bk)
-                js[i, N_MERGE] += 1.0
+        _reverse(i, u0, jc, js, stk, bk)
     js[i, DIRN] = dnew
-    # wiping-out: pop every loop the motion has closed
-    while True:
+    # wiping-out: pop every loop the motion has closed (closure point u_{n-1}, or -u_1)
+    while js[i, DEPTH] != 0.0 and not (u - js[i, CLOSE_U]) * dnew <= 0.0:
+        uc = js[i, CLOSE_U]
         depth = int(js[i, DEPTH])
-        if depth == 0:
-            break
-        if depth >= 2:
-            uc = stk[i, depth - 2, 0]
-        else:
-            uc = -stk[i, 0, 0]
-        if (u - uc) * dnew <= 0.0:
-            break
         # dissipation at the closure point on the branch that closes
-        f, d, e, kt = _eval_at(i, uc, jc, js, stk)
+        f, d, e, kt = _eval_at(i, uc, jc, js)
         _lower_depth(i, depth - 2 if depth >= 2 else 0, uc, d, jc, js, stk, bk)
-    f, d, e, kt = _eval_at(i, u, jc, js, stk)
+    f, kt, p = _eval_force(i, u, jc, js)
     js[i, U_PREV] = u
     js[i, F_PREV] = f
-    js[i, E_PREV] = e
-    js[i, D_PREV] = d
+    js[i, P_PREV] = p
     return kt
 
 
@@ -272,8 +338,10 @@ def joint_set_virgin(i, u, jc, js):
     The dissipation counter starts at zero here (the loading is before the record starts).
     """
     x = abs(u)
-    fbb, dv, uv, kt, kc = _branch(x, jc, i)
+    fbb, kt, kc, p = _branch_force(x, jc, i)
+    dv, uv = _branch_energy(x, p, jc, i)
     s = 1.0 if u >= 0.0 else -1.0
+    js[i, P_PREV] = p
     js[i, U_PREV] = u
     js[i, F_PREV] = s * fbb
     js[i, E_PREV] = uv
@@ -285,6 +353,11 @@ def joint_set_virgin(i, u, jc, js):
     js[i, KCURV] = kc * s
     js[i, ONSET_HI] = jc[i, PHIMAX]
     js[i, ONSET_LO] = -jc[i, PHIMAX]
+    js[i, ROOT_U] = 0.0
+    js[i, ROOT_F] = 0.0
+    js[i, ROOT_E] = 0.0
+    js[i, ROOT_C] = 1.0
+    js[i, CLOSE_U] = 0.0
 
 
 def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
@@ -297,16 +370,15 @@ def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
     terms).  Returns the corrected displacement and the velocity change.
     """
     dirn = 1.0 if v0 > 0.0 else -1.0
-    ur, fr, er, c = _root(i, js, stk)
+    ur, fr, er, c = _root(i, js)
     x0 = abs(q0 - ur) * (0.5 if c == 2.0 else 1.0)  # |q0 - ur| / c, exactly
     if x0 >= jc[i, PHIMAX] or (q0 - ur) * dirn < 0.0:
         return q1, 0.0
     us = ur + dirn * c * jc[i, PHIMAX]
     if (q1 - us) * dirn <= 0.0:
         return q1, 0.0
-    depth = int(js[i, DEPTH])
-    if depth >= 1:
-        uc = stk[i, depth - 2, 0] if depth >= 2 else -stk[i, 0, 0]
+    if js[i, DEPTH] != 0.0:
+        uc = js[i, CLOSE_U]
         if (us - uc) * dirn > 0.0:
             return q1, 0.0  # the branch closes before its onset
     # crossing time from q0 + v0 t + a0 t^2 / 2 = us (root nearest 0 in [0, h])
@@ -324,6 +396,44 @@ def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
     r = h - ts
     jump = jc[i, SPOINT] * vs
     return q1 + jump * r * r * r / 6.0, jump * r * r * 0.5
+
+
+def _substep(i, q0, v0, e_in, e_visc, fi, cv, coef, jc, js, stk, bk):
+    """One sub-step of mode ``i`` from ``(q0, v0)`` (see :func:`advance` and the module
+    docstring); returns the new ``q, qdot`` and the energy input and viscous energy sums."""
+    h = coef[i, 10]
+    kt = jc[i, KT]
+    fj = js[i, F_PREV]
+    kt0 = js[i, KTAN] - kt
+    g0 = fj - kt * q0
+    a0 = fi - cv * v0 - jc[i, KINF] * q0 - fj
+    g1 = kt0 * v0
+    g2 = js[i, KCURV] * v0 * v0 + kt0 * a0
+    p0 = fi - g0
+    q1 = coef[i, 0] * q0 + coef[i, 1] * v0 + coef[i, 4] * p0 - coef[i, 6] * g1 - coef[i, 8] * g2
+    v1 = coef[i, 2] * q0 + coef[i, 3] * v0 + coef[i, 5] * p0 - coef[i, 7] * g1 - coef[i, 9] * g2
+    if jc[i, SPOINT] > 0.0 and v0 * v1 > 0.0:
+        # cheap necessary condition first: the step passes the branch's onset point
+        if v0 > 0.0:
+            near = q0 < js[i, ONSET_HI] < q1
+        else:
+            near = q1 < js[i, ONSET_LO] < q0
+        if near:
+            q1, dv = _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk)
+            v1 += dv
+    if v0 * v1 < 0.0:
+        # velocity reversal inside the step: insert the displacement extremum
+        ts = v0 / (v0 - v1)
+        ue = q0 + 0.5 * v0 * ts * h
+        if v0 > 0.0:
+            ue = max(ue, q0, q1)
+        else:
+            ue = min(ue, q0, q1)
+        _move(i, ue, jc, js, stk, bk)
+    _move(i, q1, jc, js, stk, bk)
+    e_in += fi * (q1 - q0)
+    e_visc += cv * h * 0.5 * (v0 * v0 + v1 * v1)
+    return q1, v1, e_in, e_visc
 
 
 def advance(n_sub, coef, f, st, jc, js, stk, bk):
@@ -350,55 +460,37 @@ def advance(n_sub, coef, f, st, jc, js, stk, bk):
 
     Notes
     -----
-    Sub-step k of every mode that has one runs before sub-step k+1 of any: the modes are
-    independent, and interleaving them lets the processor overlap their work.
+    The modes are independent.  They run in pairs, (0, 1), (2, 3), ..., one sub-step of each
+    in turn (the rest of the one with more sub-steps after), so that the processor can overlap
+    the two modes' work; each mode's state and sums stay in local variables meanwhile.  Measured
+    on the benchmark set: pairs 3-8 % faster than one mode at a time, which is 2-17 % faster
+    than interleaving all modes sub-step by sub-step.  The joints' stored energy and dissipation
+    (``E_PREV``, ``D_PREV``) are brought up to date once, at the end (see :func:`_energies`).
     """
     n_modes = st.shape[0]
-    n_max = 0
     for i in range(n_modes):
         js[i, LOW] = js[i, DEPTH]
-        if n_sub[i] > n_max:
-            n_max = n_sub[i]
-    for k in range(n_max):
-        for i in range(n_modes):
-            if k >= n_sub[i]:
-                continue
-            h = coef[i, 10]
-            q0 = st[i, 0]
-            v0 = st[i, 1]
-            kt0 = js[i, KTAN] - jc[i, KT]
-            g0 = js[i, F_PREV] - jc[i, KT] * q0
-            a0 = f[i] - st[i, 5] * v0 - jc[i, KINF] * q0 - js[i, F_PREV]
-            g1 = kt0 * v0
-            g2 = js[i, KCURV] * v0 * v0 + kt0 * a0
-            p0 = f[i] - g0
-            q1 = coef[i, 0] * q0 + coef[i, 1] * v0 + coef[i, 4] * p0 - coef[i, 6] * g1 - coef[i, 8] * g2
-            v1 = coef[i, 2] * q0 + coef[i, 3] * v0 + coef[i, 5] * p0 - coef[i, 7] * g1 - coef[i, 9] * g2
-            if jc[i, SPOINT] > 0.0 and v0 * v1 > 0.0:
-                # cheap necessary condition first: the step passes the branch's onset point
-                if v0 > 0.0:
-                    near = q0 < js[i, ONSET_HI] < q1
-                else:
-                    near = q1 < js[i, ONSET_LO] < q0
-                if near:
-                    q1, dv = _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk)
-                    v1 += dv
-            if v0 * v1 < 0.0:
-                # velocity reversal inside the step: insert the displacement extremum
-                ts = v0 / (v0 - v1)
-                ue = q0 + 0.5 * v0 * ts * h
-                if v0 > 0.0:
-                    ue = max(ue, q0, q1)
-                else:
-                    ue = min(ue, q0, q1)
-                joint_move(i, ue, jc, js, stk, bk)
-            joint_move(i, q1, jc, js, stk, bk)
-            st[i, 3] += f[i] * (q1 - q0)
-            st[i, 4] += st[i, 5] * h * 0.5 * (v0 * v0 + v1 * v1)
-            st[i, 0] = q1
-            st[i, 1] = v1
+    for a in range(0, n_modes, 2):
+        b = a + 1 if a + 1 < n_modes else a
+        fa, ca, fb, cb = f[a], st[a, 5], f[b], st[b, 5]
+        qa, va, ia, wa = st[a, 0], st[a, 1], st[a, 3], st[a, 4]
+        qb, vb, ib, wb = st[b, 0], st[b, 1], st[b, 3], st[b, 4]
+        na = n_sub[a]
+        nb = n_sub[b] if b != a else 0
+        n = na if na < nb else nb
+        for k in range(n):
+            qa, va, ia, wa = _substep(a, qa, va, ia, wa, fa, ca, coef, jc, js, stk, bk)
+            qb, vb, ib, wb = _substep(b, qb, vb, ib, wb, fb, cb, coef, jc, js, stk, bk)
+        for k in range(n, na):
+            qa, va, ia, wa = _substep(a, qa, va, ia, wa, fa, ca, coef, jc, js, stk, bk)
+        for k in range(n, nb):
+            qb, vb, ib, wb = _substep(b, qb, vb, ib, wb, fb, cb, coef, jc, js, stk, bk)
+        st[a, 0], st[a, 1], st[a, 3], st[a, 4] = qa, va, ia, wa
+        if b != a:
+            st[b, 0], st[b, 1], st[b, 3], st[b, 4] = qb, vb, ib, wb
     check = 0.0
     for i in range(n_modes):
+        _energies(i, jc, js)
         check += st[i, 0] + st[i, 1] + js[i, F_PREV]
     return check
 

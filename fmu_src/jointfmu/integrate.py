@@ -55,7 +55,9 @@ DEFAULT_STACK_CAPACITY = 4096
 #: Largest magnitude accepted for an input (keeps every intermediate value finite).
 MAX_INPUT = 1e12
 
-_STATE_VERSION = 2
+#: 3: the joint state ``js`` also caches the branch root, the closure point and the power
+#: x^(chi+2) at the joint's position (_kernel.NJS = 20).
+_STATE_VERSION = 3
 
 
 def _joint_constants(model: ModalModel, merge_tol: float) -> np.ndarray:
@@ -75,6 +77,7 @@ def _joint_constants(model: ModalModel, merge_tol: float) -> np.ndarray:
     jc[:, K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
     jc[:, K.CK] = R / (chi + 1.0)
     jc[:, K.E2] = chi + 2.0
+    jc[:, K.CKC] = -jc[:, K.CK] * (jc[:, K.E2] - 1.0)
     pm = phimax ** (chi + 2.0)
     jc[:, K.DVPM] = jc[:, K.CD] * phimax * pm
     jc[:, K.UVPM] = 0.5 * Kt * phimax**2 - jc[:, K.CUV] * phimax * pm
@@ -654,7 +657,7 @@ class ModalSimulator:
         except Exception as exc:  # noqa: BLE001
             raise InputError(f"FMU state: not a jointfmu state ({exc})") from exc
         if (int(parts.get("version", -1)) != _STATE_VERSION or parts["st"].shape != self._st.shape
-                or parts["u"].shape != self._u.shape):
+                or parts["js"].shape != self._js.shape or parts["u"].shape != self._u.shape):
             raise InputError("FMU state: made by another structure or version of jointfmu")
         depth = parts["stk"].shape[1]
         if depth > self._cap:
