@@ -477,17 +477,20 @@ class ModalSimulator:
 
     def step(self, dt: float) -> tuple[bool, str]:
         """Advance by ``dt`` seconds with the held inputs (see the module docstring)."""
+        # a plan exists only for step sizes checked before (sub_steps may plan others)
+        plan = self._plans.get(dt) if type(dt) is float and 0.0 < dt < math.inf else None
+        if plan is None:   # a step size not seen before, or not a float: check it, then plan
+            try:
+                dt = float(dt)
+            except (TypeError, ValueError):
+                return False, f"step size {dt!r} is not a number"
+            if not math.isfinite(dt) or dt < 0.0:
+                return False, f"step size {dt!r}: must be finite and >= 0"
+            if dt == 0.0:
+                return True, ""
+            plan = self._plan(dt)
         try:
-            dt = float(dt)
-        except (TypeError, ValueError):
-            return False, f"step size {dt!r} is not a number"
-        if not math.isfinite(dt) or dt < 0.0:
-            return False, f"step size {dt!r}: must be finite and >= 0"
-        if dt == 0.0:
-            return True, ""
-        n_sub, coef = self._plans.get(dt) or self._plan(dt)
-        try:
-            check = self._step_all(n_sub, coef, *self._step_args)
+            check = self._step_all(plan[0], plan[1], *self._step_args)
             ok = math.isfinite(check)
             self._fresh = ok
             message = "" if ok else "the step produced a non-finite state"

@@ -77,6 +77,7 @@ class JointSlave(Fmi2Slave):
         self._in_pos: dict[int, int] = {}    # input vr -> position in the simulator's inputs
         self._out_pos: dict[int, int] = {}   # output vr -> position in its output vector
         self._pending = set(self._input_vrs)  # inputs set since they were last handed over
+        self._read_plans: dict[tuple, list] = {}   # see _read_plan
         self._settings_changed = True        # a parameter was set since the last check
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
@@ -110,12 +111,25 @@ class JointSlave(Fmi2Slave):
             if self._pending:
                 self._push_inputs_if_valid()
             outs = self._sim.output_buffer()     # AttributeError before a simulator exists
-            out_pos, values = self._out_pos, self._values
-            if vrs and min(vrs) < 0:    # a list index would count from the end
-                raise IndexError(vrs)
-            return [outs[out_pos[vr]] if vr in out_pos else values[vr] for vr in vrs]
+            key = tuple(vrs)
+            plan = self._read_plans.get(key) or self._read_plan(key)
+            values = self._values
+            return [outs[p] if p >= 0 else values[~p] for p in plan]
         except Exception:
             return [self._get_one(vr) for vr in vrs]
+
+    def _read_plan(self, vrs: tuple) -> list:
+        """Where get_real finds each of ``vrs``: p >= 0 at position p of the output buffer,
+        p < 0 in the stored values at ~p.  Kept per tuple of value references (a host reads the
+        same ones every step); LookupError for an unknown value reference."""
+        n = len(self._table)
+        if not all(type(vr) is int and 0 <= vr < n for vr in vrs):
+            raise LookupError(vrs)
+        if len(self._read_plans) > 64:
+            self._read_plans.clear()
+        out_pos = self._out_pos
+        plan = self._read_plans[vrs] = [out_pos.get(vr, ~vr) for vr in vrs]
+        return plan
 
     def _push_inputs_if_valid(self) -> None:
         try:
@@ -146,19 +160,28 @@ class JointSlave(Fmi2Slave):
         reports a refused one, names it, and does not step) or output read.  Parameters only
         before initialization ends; outputs and unknown value references are refused with an
         error-status message."""
-        inputs, stored, pending, sim = self._input_vrs, self._values, self._pending, self._sim
-        for vr, value in zip(vrs, values):
-            if vr in inputs:
-                stored[vr] = value
-                if sim is None or pending:
-                    pending.add(vr)     # handed over in order at the next doStep or read
+        stored, pending, sim = self._values, self._pending, self._sim
+        if sim is None or pending:
+            # handed over together at the next doStep or read
+            inputs = self._input_vrs
+            for vr, value in zip(vrs, values):
+                if vr in inputs:
+                    stored[vr] = value
+                    pending.add(vr)
                 else:
-                    try:
-                        sim.set_input_value(self._in_pos[vr], value)
-                    except JointFmuError:
-                        pending.add(vr)  # refused, with its FMU name, at the next doStep
-            else:
+                    self._set_value(vr, value)
+            return
+        in_pos = self._in_pos
+        for vr, value in zip(vrs, values):
+            p = in_pos.get(vr)
+            if p is None:
                 self._set_value(vr, value)
+                continue
+            stored[vr] = value
+            try:
+                sim.set_input_value(p, value)
+            except JointFmuError:
+                pending.add(vr)     # refused, naming its FMU variable, at the next doStep
 
     def _set_value(self, vr, value) -> None:
         if not (isinstance(vr, int) and 0 <= vr < len(self._table)):
@@ -185,19 +208,20 @@ class JointSlave(Fmi2Slave):
 
     def do_step(self, current_time: float, step_size: float) -> bool:
         try:
-            if not self._ensure_simulator():
+            if (self._sim is None or self._settings_changed) and not self._ensure_simulator():
                 self.log(f"cannot step: {self._init_error}", Fmi2Status.error)
                 return False
-            if not (math.isfinite(step_size) and step_size >= 0.0):
+            if not 0.0 <= step_size < math.inf:
                 self.log(f"communication step size {step_size!r} at t = {current_time!r} s is "
                          "invalid: allowed is a finite step >= 0 s", Fmi2Status.error)
                 return False
-            try:
-                self._push_inputs()
-            except JointFmuError as exc:
-                self.log(f"input at t = {current_time!r} s rejected, step not taken, state kept: "
-                         f"{exc}", Fmi2Status.error)
-                return False
+            if self._pending:
+                try:
+                    self._push_inputs()
+                except JointFmuError as exc:
+                    self.log(f"input at t = {current_time!r} s rejected, step not taken, state "
+                             f"kept: {exc}", Fmi2Status.error)
+                    return False
             ok, message = self._sim.step(step_size)
             if not ok:
                 self.log(f"step from t = {current_time!r} s by {step_size!r} s failed, state kept: "
@@ -252,6 +276,7 @@ class JointSlave(Fmi2Slave):
                             for vr, v in enumerate(self._table) if v.is_input}
             self._out_pos = {vr: sim.output_index(v.kind, v.index)
                              for vr, v in enumerate(self._table) if v.is_output}
+            self._read_plans = {}
             self._sim = sim
         except JointFmuError as exc:
             self._init_error = str(exc)
