@@ -140,9 +140,7 @@ class JointSlave(Fmi2Slave):
     def _get_one(self, vr) -> float:
         """One value on the slow path: before a simulator exists (outputs read 0), an unknown
         value reference (reported, NaN), or an output that cannot be evaluated (NaN)."""
-        if not (isinstance(vr, int) and 0 <= vr < len(self._table)):
-            self.log(f"value reference {vr!r} is not a variable of this FMU: allowed are "
-                     f"0..{len(self._table) - 1} (modelDescription.xml)", Fmi2Status.error)
+        if not self._known(vr, "read as NaN"):
             return math.nan
         if not self._table[vr].is_output:
             return self._values[vr]
@@ -153,6 +151,14 @@ class JointSlave(Fmi2Slave):
             return self._sim.output_buffer()[self._out_pos[vr]]
         except Exception:       # never raise into the C wrapper
             return math.nan
+
+    def _known(self, vr, consequence: str) -> bool:
+        """True for a value reference of this FMU; otherwise an error-status message."""
+        if isinstance(vr, int) and 0 <= vr < len(self._table):
+            return True
+        self.log(f"value reference {vr!r} is not a variable of this FMU ({consequence}): allowed "
+                 f"are 0..{len(self._table) - 1}, as in modelDescription.xml", Fmi2Status.error)
+        return False
 
     def set_real(self, vrs, values) -> None:
         """Set the variables ``vrs`` (fmi2SetReal).  A valid input goes to the simulator at once;
@@ -184,9 +190,7 @@ class JointSlave(Fmi2Slave):
                 pending.add(vr)     # refused, naming its FMU variable, at the next doStep
 
     def _set_value(self, vr, value) -> None:
-        if not (isinstance(vr, int) and 0 <= vr < len(self._table)):
-            self.log(f"value reference {vr!r} is not a variable of this FMU: allowed are "
-                     f"0..{len(self._table) - 1} (value {value!r} ignored)", Fmi2Status.error)
+        if not self._known(vr, f"value {value!r} ignored"):
             return
         var = self._table[vr]
         if var.is_output:
