@@ -39,7 +39,9 @@ def test_build_prints_where_and_default_path_outside_repo(tmp_path, capsys, monk
     ps = load_parameter_set(NOMINAL)
     expected = tmp_path / "build" / f"{ps.name}_sn-0002.fmu"
     assert expected.is_file()
-    assert str(expected) in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert str(expected) in out
+    assert "joint kernel: " in out      # compiled here, not at the first doStep (or why not)
     assert [p.name for p in expected.parent.iterdir()] == [expected.name]   # no temp files
     mask = os.umask(0)
     os.umask(mask)
