@@ -215,7 +215,8 @@ from pythonfmu.variables import Real
 
 
 class EmptyBenchSlave(Fmi2Slave):
-    """No model: {n_in} inputs, {n_out} outputs, do_step returns at once (overhead floor)."""
+    """No model: {n_in} inputs, {n_out} outputs, do_step returns at once, get_real and set_real
+    touch nothing (the floor of a Python FMU)."""
 
     def __init__(self, **kwargs):
         super().__init__(**kwargs)
@@ -228,6 +229,13 @@ class EmptyBenchSlave(Fmi2Slave):
 
     def do_step(self, current_time, step_size):
         return True
+
+    # no Python per variable either: what is left is pythonfmu's C++ wrapper and the host's calls
+    def get_real(self, vrs):
+        return [0.0] * len(vrs)
+
+    def set_real(self, vrs, values):
+        pass
 '''
 
 
@@ -251,7 +259,8 @@ def _loop(s, ivr, ovr, n, dt=1e-3, amp=None, style="lists"):
 
     ``style="lists"``: FMU2Slave's ``setReal``/``getReal`` with Python lists (ctypes arrays made
     at every call).  ``style="arrays"``: FMU2Slave's ``fmi2SetReal``/``fmi2GetReal`` on ctypes
-    arrays made once, as fmpy's own ``simulate_fmu`` feeds inputs.  ``ivr = ovr = None``: doStep
+    arrays made once.  ``style="mixed"``: as fmpy's own ``simulate_fmu`` does it, inputs through
+    ``fmi2SetReal`` on arrays made once, outputs through ``getReal``.  ``ivr = ovr = None``: doStep
     alone.
     """
     from fmpy.fmi2 import fmi2Real, fmi2ValueReference
@@ -266,6 +275,22 @@ def _loop(s, ivr, ovr, n, dt=1e-3, amp=None, style="lists"):
             s_time[0] = t0 + n * dt
         return run
     amp = amp if amp is not None else [0.0] * len(ivr)
+    if style == "mixed":   # fmpy's simulate_fmu: Input sets arrays, Recorder reads lists
+        vi, xi = (fmi2ValueReference * len(ivr))(*ivr), (fmi2Real * len(ivr))()
+        set_real_arrays, c, ni = s.fmi2SetReal, s.component, len(ivr)
+
+        def run():
+            t0 = s_time[0]
+            for k in range(n):
+                t = t0 + k * dt
+                x = math.sin(w * t)
+                for j in range(ni):
+                    xi[j] = amp[j] * x
+                set_real_arrays(c, vi, ni, xi)
+                s.doStep(t, dt)
+                s.getReal(ovr)
+            s_time[0] = t0 + n * dt
+        return run
     if style == "lists":
         def run():
             t0 = s_time[0]
@@ -294,6 +319,12 @@ def _loop(s, ivr, ovr, n, dt=1e-3, amp=None, style="lists"):
             get_real(c, vo, no, xo)
         s_time[0] = t0 + n * dt
     return run
+
+
+#: Host styles of driving the FMU through FMU2Slave (see _loop).
+STYLES = {"lists": "setReal/getReal (lists)",
+          "mixed": "as simulate_fmu (arrays in, lists out)",
+          "arrays": "fmi2SetReal/fmi2GetReal (arrays)"}
 
 
 def bench_fmu(params, work: Path, quick):
@@ -335,7 +366,7 @@ def bench_fmu(params, work: Path, quick):
     loops = {"doStep_only_us": _loop(s, None, None, n),
              "empty_doStep_only_us": _loop(e, None, None, n)}
     for name, (iv, ov, ni, no) in cases.items():
-        for style in ("lists", "arrays"):
+        for style in STYLES:
             loops[f"{name}_{style}"] = _loop(s, iv, ov, n, amp=[drive] * ni, style=style)
             loops[f"{name}_{style}_empty"] = _loop(e, e_in[:ni], e_out[:no], n, style=style)
     fastest = dict.fromkeys(loops, np.inf)
@@ -344,7 +375,7 @@ def bench_fmu(params, work: Path, quick):
             fastest[key] = min(fastest[key], best(loop, 1))
     us = {key: t / n * 1e6 for key, t in fastest.items()}
     for name in cases:
-        for style in ("lists", "arrays"):
+        for style in STYLES:
             key = f"{name}_{style}"
             res[key] = {"us_per_step": us[key], "realtime_factor": 1e3 / us[key],
                         "empty_us_per_step": us[key + "_empty"]}
@@ -661,14 +692,13 @@ def main(argv=None) -> int:
           f"{ISSUE_EMPTY_DOSTEP_US:g}), ours {fm['doStep_only_us']:.2f} us; "
           f"{TARGET_REALTIME_FACTOR:g}x real time there (<= {1e3 / TARGET_REALTIME_FACTOR:g} us per "
           f"step) is <= {us_target_here:.1f} us per step here")
-    print("  case     host calls                      ours [us/step]  realtime x  "
+    print("  case     host calls                              ours [us/step]  realtime x  "
           "scaled x  empty slave [us]  ours - empty [us]")
     for name in ("typical", "all"):
-        for style, text in (("lists", "setReal/getReal (lists)"),
-                            ("arrays", "fmi2SetReal/fmi2GetReal (arrays)")):
+        for style, text in STYLES.items():
             c = fm[f"{name}_{style}"]
             c["realtime_factor_scaled"] = c["realtime_factor"] * fmu_factor
-            print(f"  {name:8s} {text:32s} {c['us_per_step']:14.1f}  "
+            print(f"  {name:8s} {text:40s} {c['us_per_step']:14.1f}  "
                   f"{c['realtime_factor']:10.0f}  {c['realtime_factor_scaled']:8.0f}  "
                   f"{c['empty_us_per_step']:16.1f}  "
                   f"{c['us_per_step'] - c['empty_us_per_step']:17.1f}")
@@ -716,6 +746,7 @@ def main(argv=None) -> int:
         "fallback_ns_per_mode_step": round(k["fallback_ns_per_mode_step"], 1),
         "fmu_realtime_factor": round(typ["realtime_factor"], 1),
         "fmu_realtime_factor_arrays": round(typ_arrays["realtime_factor"], 1),
+        "fmu_realtime_factor_mixed": round(fm["typical_mixed"]["realtime_factor"], 1),
         "fmu_realtime_factor_all_variables": round(fm["all_lists"]["realtime_factor"], 1),
         "fmu_us_per_step": round(typ["us_per_step"], 2),
         "empty_fmu_us_per_step": round(typ["empty_us_per_step"], 2),
@@ -740,6 +771,7 @@ def main(argv=None) -> int:
         "kernel_ns_per_mode_step_scaled": round(k["kernel_ns_per_mode_step"] / kernel_factor, 2),
         "fmu_realtime_factor_scaled": round(typ["realtime_factor_scaled"], 1),
         "fmu_realtime_factor_arrays_scaled": round(typ_arrays["realtime_factor_scaled"], 1),
+        "fmu_realtime_factor_mixed_scaled": round(fm["typical_mixed"]["realtime_factor_scaled"], 1),
         "cold_start_s_scaled": round(cold["warm_cache"]["instantiate_to_first_step_s"]
                                      / fmu_factor, 3),
         "quick": quick,
