@@ -26,7 +26,7 @@ import array
 import io
 import math
 import warnings
-from operator import index
+from operator import index as _integer
 
 import numpy as np
 from scipy.linalg import expm
@@ -370,7 +370,7 @@ class ModalSimulator:
         last = self._u.shape[0] - 1
         try:
             n_pos, n_val = len(positions), len(values)
-            checked = [(index(p), float(x)) for p, x in zip(positions, values)]
+            checked = [(_integer(p), float(x)) for p, x in zip(positions, values)]
         except (TypeError, ValueError) as exc:
             raise InputError(f"input positions and values: {exc}; expected sequences of "
                              "positions (from input_index) and as many numbers") from None
