@@ -20,6 +20,15 @@ Resources of a built FMU::
     resources/requirements.txt           what the host's Python needs
     resources/pythonfmu/                 pythonfmu's own runtime (added by pythonfmu)
 
+Binary.  By default (``binary="auto"``) the FMU carries jointfmu's own FMI 2.0 binary, the
+C file ``native/fmi2_shell.c`` compiled at build time with ``$CC`` (or ``cc``) against this
+Python's headers: it answers fmi2SetReal of inputs and fmi2GetReal of outputs from the
+simulator's buffers without calling Python, and forwards every other call to the slave as
+pythonfmu's binary does.  Where it cannot be compiled (no compiler, no Python headers, not
+Linux or macOS, a compile error) the FMU keeps pythonfmu's binary and the build info records
+why; ``binary="native"`` makes that a :class:`BuildError`, ``binary="pythonfmu"`` always keeps
+pythonfmu's binary.  The environment variable ``JOINTFMU_FMU_BINARY`` sets the default.
+
 Every file is written atomically (temp file in the target folder, then ``os.replace``): a failed
 build leaves nothing behind.
 """
@@ -31,8 +40,12 @@ import json
 import math
 import os
 import re
+import platform
+import shlex
 import shutil
+import subprocess
 import sys
+import sysconfig
 import tempfile
 import zipfile
 from dataclasses import dataclass
@@ -72,6 +85,11 @@ HOST_REQUIREMENTS = ("numpy>=1.24", "scipy>=1.10")
 HOST_OPTIONAL = ("numba>=0.58",)
 
 _PACKAGE_DIR = Path(__file__).resolve().parent
+#: jointfmu's own FMI 2.0 binary (C source), compiled into each FMU when possible.
+SHELL_SOURCE = _PACKAGE_DIR / "native" / "fmi2_shell.c"
+#: Allowed values of build_fmu(binary=...) (and of JOINTFMU_FMU_BINARY).
+BINARY_CHOICES = ("auto", "native", "pythonfmu")
+BINARY_ENV = "JOINTFMU_FMU_BINARY"
 
 
 @dataclass(frozen=True)
@@ -137,6 +155,8 @@ def _source_hash() -> str:
     h = hashlib.sha256(_ENTRY_TEMPLATE.encode() + b"\0" + _pythonfmu_version().encode())
     for p in _core_files():
         h.update(p.name.encode() + b"\0" + p.read_bytes() + b"\0")
+    if SHELL_SOURCE.is_file():
+        h.update(SHELL_SOURCE.name.encode() + b"\0" + SHELL_SOURCE.read_bytes() + b"\0")
     return h.hexdigest()
 
 
@@ -174,6 +194,73 @@ def default_output_path(params: ParameterSet, cwd: Path | None = None) -> Path:
         except OSError:
             continue
     return folder / f"{params.name}_{_slug(params.build)}.fmu"
+
+
+# ------------------------------------------------------------------------- the native binary
+def _binary_choice(binary: str | None) -> str:
+    """``binary`` checked, or the default: ``$JOINTFMU_FMU_BINARY``, else ``"auto"``."""
+    source = "binary"
+    if binary is None:
+        binary, source = os.environ.get(BINARY_ENV) or "auto", f"${BINARY_ENV}"
+    if binary not in BINARY_CHOICES:
+        raise BuildError(f"{source} = {binary!r} is not a binary choice: allowed are "
+                         + ", ".join(repr(c) for c in BINARY_CHOICES))
+    return binary
+
+
+def _platform_folder() -> str | None:
+    """The FMI 2.0 binaries folder of this machine (sec. 2.3) where the shell can be built."""
+    system = platform.system()
+    if sys.maxsize <= 2 ** 32 or system not in ("Linux", "Darwin"):
+        return None
+    return {"Linux": "linux64", "Darwin": "darwin64"}[system]
+
+
+def _compile_shell(folder: Path, ident: str) -> tuple[Path | None, str]:
+    """Compile :data:`SHELL_SOURCE` into ``folder/<ident>.<ext>``.
+
+    Returns (the library, "") or (None, why it could not be compiled).  The library links no
+    libpython: the Python C API comes from the host process, as with pythonfmu's binary.
+    """
+    plat = _platform_folder()
+    if plat is None:
+        return None, (f"the native binary is built on 64-bit Linux and macOS only (this is "
+                      f"{platform.system()} {platform.machine()})")
+    if not SHELL_SOURCE.is_file():
+        return None, f"its source {SHELL_SOURCE} is missing"
+    include = sysconfig.get_paths().get("include")
+    if not include or not (Path(include) / "Python.h").is_file():
+        return None, f"no Python headers (Python.h) in {include!r}"
+    cc = shlex.split(os.environ.get("CC") or "cc")
+    if not cc or shutil.which(cc[0]) is None:
+        return None, (f"no C compiler: {cc[0] if cc else '$CC'!r} not found (set $CC or "
+                      "install cc)")
+    ext = "dylib" if plat == "darwin64" else "so"
+    out = folder / f"{ident}.{ext}"
+    cmd = cc + ["-shared", "-fPIC", "-O2", "-fvisibility=hidden", f"-I{include}", "-o", str(out),
+                str(SHELL_SOURCE)]
+    if plat == "darwin64":
+        cmd[-2:-2] = ["-undefined", "dynamic_lookup"]
+    try:
+        proc = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+    except (OSError, subprocess.SubprocessError) as exc:
+        return None, f"{' '.join(cmd[:1])} failed to run: {exc}"
+    if proc.returncode != 0 or not out.is_file():
+        tail = (proc.stderr or proc.stdout).strip().splitlines()[-5:]
+        return None, (f"compiling {SHELL_SOURCE.name} with {' '.join(cc)} failed (exit "
+                      f"{proc.returncode}): " + " | ".join(tail))
+    return out, ""
+
+
+def _replace_binary(zip_in: zipfile.ZipFile, item: zipfile.ZipInfo, native: Path | None,
+                    ident: str) -> bytes:
+    """The bytes of archive member ``item``: the native library in place of pythonfmu's binary
+    for this platform, every other member unchanged."""
+    if native is not None and item.filename == f"binaries/{_platform_folder()}/{native.name}" \
+            and native.stem == ident:
+        return native.read_bytes()
+    return zip_in.read(item.filename)
+
 
 
 # --------------------------------------------------------------------------------- build
@@ -225,7 +312,7 @@ class {ident}(_slave.JointSlave):
 
 
 def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None = None,
-              *, cwd: Path | None = None) -> BuildResult:
+              *, cwd: Path | None = None, binary: str | None = None) -> BuildResult:
     """Build the FMI 2.0 co-simulation FMU of a parameter file.
 
     Parameters
@@ -236,6 +323,10 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         The ``.fmu`` to write; default :func:`default_output_path`.  Replaced atomically.
     cwd : Path, optional
         Folder that decides the default output (default the current folder).
+    binary : {"auto", "native", "pythonfmu"}, optional
+        The FMU's binary: jointfmu's native shell where it can be compiled, else pythonfmu's
+        (``"auto"``); the native shell or a :class:`BuildError` (``"native"``); pythonfmu's
+        (``"pythonfmu"``).  Default ``$JOINTFMU_FMU_BINARY``, else ``"auto"``.
 
     Returns
     -------
@@ -246,8 +337,10 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
     ParameterError
         The parameter file is invalid (nothing written).
     BuildError
-        Packaging failed (nothing written, an existing ``output`` untouched).
+        Packaging failed, ``binary`` is not allowed, or ``binary="native"`` and the shell
+        cannot be compiled (nothing written, an existing ``output`` untouched).
     """
+    choice = _binary_choice(binary)
     params = load_parameter_set(params_path)
     out = Path(output) if output is not None else default_output_path(params, cwd)
     if out.suffix.lower() != ".fmu":
@@ -272,8 +365,16 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         core_dir.mkdir()
         for f in _core_files():
             shutil.copy2(f, core_dir / f.name)
+        native, why = None, "pythonfmu's binary was asked for (binary='pythonfmu')"
+        if choice != "pythonfmu":
+            cdir = staging / "native"
+            cdir.mkdir()
+            native, why = _compile_shell(cdir, ident)
+            if native is None and choice == "native":
+                raise BuildError(f"the native FMU binary cannot be built: {why}; build with "
+                                 "binary='auto' or 'pythonfmu' to keep pythonfmu's binary")
         (src / PARAMETER_FILE).write_text(params.to_toml(), encoding="utf-8")
-        info = _build_info(params, ident, core)
+        info = _build_info(params, ident, core, native, why)
         (src / BUILD_INFO_FILE).write_text(json.dumps(info, indent=2) + "\n", encoding="utf-8")
         (src / "requirements.txt").write_text(
             "# Python packages the FMU's host interpreter needs (pip install -r requirements.txt)\n"
@@ -296,7 +397,7 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         fd, tmp_name = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent)
         os.close(fd)
         tmp_fmu = Path(tmp_name)
-        _complete_fmu(raw, tmp_fmu, params, ident, core)
+        _complete_fmu(raw, tmp_fmu, params, ident, core, native)
         publish(tmp_fmu, out)
         tmp_fmu = None
     except JointFmuError:
@@ -335,7 +436,17 @@ def _pythonfmu_version() -> str:
         return "unknown"
 
 
-def _build_info(params: ParameterSet, ident: str, core: str) -> dict:
+def _build_info(params: ParameterSet, ident: str, core: str, native: Path | None = None,
+                why: str = "") -> dict:
+    plat = _platform_folder()
+    if native is not None:
+        binary = {"kind": "native", "platform": plat,
+                  "description": "jointfmu's native FMI 2.0 shell (native/fmi2_shell.c): get/set "
+                                 "of inputs and outputs without Python; pythonfmu's binary on "
+                                 "other platforms"}
+    else:
+        binary = {"kind": "pythonfmu", "platform": plat,
+                  "description": "pythonfmu's binary on every platform", "reason": why}
     return {
         "set_id": params.set_id,
         "name": params.name,
@@ -348,6 +459,7 @@ def _build_info(params: ParameterSet, ident: str, core: str) -> dict:
         "host_requirements": list(HOST_REQUIREMENTS),
         "host_optional": list(HOST_OPTIONAL),
         "built_with_python": sys.version.split()[0],
+        "binary": binary,
     }
 
 
@@ -373,8 +485,10 @@ def _default_experiment(params: ParameterSet) -> tuple[float, float]:
     return nice(stop, True), nice(step, False)
 
 
-def _complete_fmu(raw: Path, dest: Path, params: ParameterSet, ident: str, core: str) -> None:
-    """Copy the pythonfmu archive ``raw`` to ``dest`` with a completed modelDescription.xml."""
+def _complete_fmu(raw: Path, dest: Path, params: ParameterSet, ident: str, core: str,
+                  native: Path | None = None) -> None:
+    """Copy the pythonfmu archive ``raw`` to ``dest`` with a completed modelDescription.xml
+    (and the native binary ``native`` in place of pythonfmu's for this platform)."""
     with zipfile.ZipFile(raw) as zin:
         xml = zin.read("modelDescription.xml")
         root = _complete_model_description(ET.fromstring(xml), params, ident, core)
@@ -385,8 +499,12 @@ def _complete_fmu(raw: Path, dest: Path, params: ParameterSet, ident: str, core:
             for item in zin.infolist():
                 if item.filename == "modelDescription.xml" or "__pycache__" in item.filename:
                     continue
-                zout.writestr(item, zin.read(item.filename),
+                zout.writestr(item, _replace_binary(zin, item, native, ident),
                               compress_type=zipfile.ZIP_DEFLATED)
+            if native is not None:    # a platform pythonfmu ships no binary for (macOS)
+                target = f"binaries/{_platform_folder()}/{native.name}"
+                if target not in zin.namelist():
+                    zout.write(native, target, compress_type=zipfile.ZIP_DEFLATED)
 
 
 def _complete_model_description(root: ET.Element, params: ParameterSet, ident: str,

@@ -303,6 +303,69 @@ class JointSlave(Fmi2Slave):
             return self._params0
         return self._params0.with_mode_values(changes)
 
+    # ------------------------------------------------------------------ native binary support
+    # jointfmu's own FMI binary (native/fmi2_shell.c) answers fmi2SetReal of inputs and
+    # fmi2GetReal of outputs from the simulator's buffers and calls these methods; pythonfmu's
+    # binary never does.  None of them raises into C on purpose; the shell reports any exception.
+    def _native_layout(self):
+        """Where the shell finds the inputs and outputs: None before a simulator exists, else
+        ``(input buffer, output buffer, input position per value reference (-1: not an input),
+        output position per value reference (-1: not an output), position of the base
+        acceleration, has_base, MAX_INPUT, inputs held back)``.  The buffers are the
+        simulator's own ``array.array("d")`` objects; the shell keeps them exported, so they
+        cannot be resized while it writes into them."""
+        sim = self._sim
+        if sim is None:
+            return None
+        n = len(self._table)
+        in_pos, out_pos = [-1] * n, [-1] * n
+        for vr, p in self._in_pos.items():
+            in_pos[vr] = p
+        for vr, p in self._out_pos.items():
+            out_pos[vr] = p
+        return (sim._ubuf, sim._ybuf, tuple(in_pos), tuple(out_pos), sim._base_pos,
+                bool(sim.model.has_base), float(MAX_INPUT), bool(self._pending))
+
+    def _native_take(self, vrs) -> None:
+        """The shell wrote the inputs ``vrs`` straight into the simulator's input buffer
+        (values it checked as ModalSimulator.set_input_value does): record them as set."""
+        sim = self._sim
+        if sim is None:
+            return
+        ubuf, in_pos, values = sim._ubuf, self._in_pos, self._values
+        for vr in vrs:
+            values[vr] = ubuf[in_pos[vr]]
+        sim._fresh = False
+
+    def _native_do_step(self, current_time: float, step_size: float, vrs) -> int:
+        """fmi2DoStep from the shell, one Python call: take the inputs ``vrs`` it wrote, step.
+        Returns bit 0: stepped; bit 1: the simulator was replaced (the shell asks for the
+        layout again); bit 2: the outputs are current with the state and the inputs."""
+        if vrs:
+            self._native_take(vrs)
+        sim = self._sim
+        ok = self.do_step(current_time, step_size)
+        new = self._sim
+        return ((1 if ok else 0) | (2 if new is not sim else 0)
+                | (4 if new is not None and new._fresh else 0))
+
+    def _native_refresh(self, vrs) -> int:
+        """Bring the outputs in line with the inputs (the shell reads them next).  Returns bit
+        0: the output buffer is current; bit 1: inputs are still held back (a refused value
+        waits for doStep), so the shell keeps going through get_real/set_real."""
+        try:
+            if vrs:
+                self._native_take(vrs)
+            if self._pending:
+                self._push_inputs_if_valid()
+            sim = self._sim
+            if sim is None:
+                return 2
+            sim.output_buffer()
+            return (1 if sim._fresh else 0) | (2 if self._pending else 0)
+        except Exception:     # get_real reports it (an output that cannot be evaluated: NaN)
+            return 2
+
     # ----------------------------------------------------------------------------- states
     def _get_fmu_state(self) -> bytes:
         header = {
