@@ -48,7 +48,7 @@ import sys
 import sysconfig
 import tempfile
 import zipfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
 from typing import Iterable, Mapping, Sequence
@@ -108,6 +108,9 @@ class BuildResult:
         ``"<name>@<build>"`` of the parameter set.
     content_hash : str
         SHA-256 of the parameter set (:meth:`ParameterSet.content_hash`).
+    binary : dict
+        The FMU's binary as the build info records it: ``kind`` (``"native"`` or
+        ``"pythonfmu"``), ``platform``, ``description`` and, for pythonfmu's, ``reason``.
     """
 
     path: Path
@@ -115,6 +118,7 @@ class BuildResult:
     core_package: str
     set_id: str
     content_hash: str
+    binary: dict = field(default_factory=dict)
 
 
 # ---------------------------------------------------------------------------------- names
@@ -417,7 +421,7 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         for name in set(sys.modules) - modules_before:
             if name == ident or name == core or name.startswith(core + "."):
                 del sys.modules[name]
-    return BuildResult(out, ident, core, params.set_id, params.content_hash())
+    return BuildResult(out, ident, core, params.set_id, params.content_hash(), info["binary"])
 
 
 def _jointfmu_version() -> str:
@@ -687,8 +691,15 @@ def format_fmu_info(info: Mapping) -> str:
     if de:
         lines.append("default experiment: " + ", ".join(f"{k}={v}" for k, v in de.items()))
     bi = info["build_info"]
-    lines.append("host requirements: the host process must already run CPython (the FMU binary "
-                 "of pythonfmu links to no libpython; fmpy and other Python hosts qualify; built "
+    b = bi.get("binary") or {"kind": "pythonfmu", "reason": "built before jointfmu had its own"}
+    if b.get("kind") == "native":
+        lines.append(f"FMU binary:        jointfmu's native FMI shell for {b.get('platform')} "
+                     "(get/set of inputs and outputs without Python); pythonfmu's elsewhere")
+    else:
+        lines.append(f"FMU binary:        pythonfmu's ({b.get('reason') or 'no reason recorded'})")
+    lines.append("host requirements: the process must run CPython or load libpython (the FMU "
+                 "binary links to no libpython and starts the interpreter if the host has not; "
+                 "fmpy and other Python hosts qualify; built "
                  f"with Python {bi.get('built_with_python', '?')}), with "
                  + ", ".join(info["requirements"])
                  + (f"; optional: {', '.join(bi['host_optional'])}" if bi.get("host_optional")

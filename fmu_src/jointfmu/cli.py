@@ -45,6 +45,10 @@ def _args_build(p: argparse.ArgumentParser) -> None:
     p.add_argument("params", metavar="PARAMS", help="parameter file (jointfmu-params/1 TOML)")
     p.add_argument("-o", "--output", metavar="FMU",
                    help="FMU to write (default build/<name>_<build-slug>.fmu)")
+    p.add_argument("--binary", choices=("auto", "native", "pythonfmu"), default=None,
+                   help="the FMU's binary: jointfmu's native shell if a C compiler can build it, "
+                        "else pythonfmu's (auto, the default, or $JOINTFMU_FMU_BINARY); the "
+                        "native shell or an error (native); pythonfmu's (pythonfmu)")
 
 
 def _cmd_build(args: argparse.Namespace) -> int:
@@ -53,9 +57,10 @@ def _cmd_build(args: argparse.Namespace) -> int:
 
     from .integrate import kernel_info
 
-    r = build_fmu(args.params, args.output)
+    r = build_fmu(args.params, args.output, binary=args.binary)
     print(f"built {r.path} ({r.set_id}, sha256 {r.content_hash[:12]}, "
           f"model identifier {r.model_identifier})")
+    print(f"FMU binary: {_binary_text(r.binary)}")
     # The FMU's core compiles its kernel at its first load on a machine (about 10 s) into a
     # per-user cache that every FMU and process shares; doing it here keeps that out of the
     # first doStep of a simulation on this machine.
@@ -65,6 +70,12 @@ def _cmd_build(args: argparse.Namespace) -> int:
     else:
         print(f"joint kernel: compiled and cached for this machine ({info['reason']})")
     return 0
+
+
+def _binary_text(binary: dict) -> str:
+    if binary.get("kind") == "native":
+        return f"jointfmu's native shell ({binary.get('platform')})"
+    return f"pythonfmu's ({binary.get('reason', '')})"
 
 
 def _args_info(p: argparse.ArgumentParser) -> None:

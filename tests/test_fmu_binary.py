@@ -1,0 +1,290 @@
+"""The FMU's two binaries: jointfmu's native FMI 2.0 shell (``native/fmi2_shell.c``, the default
+where a C compiler is found) and pythonfmu's own.
+
+Key behaviour runs against both, built side by side: a run against the SciPy reference, a NaN
+input refused with its message, the FMU state round trip (FMI 2.0 standard, sec. 2.1.8), outputs
+with direct feedthrough seeing inputs before a step (sec. 2.2.8), input values beyond the allowed
+magnitude, and a mixed fmi2GetReal.  The whole of ``test_fmu.py`` runs against pythonfmu's binary
+with ``JOINTFMU_FMU_BINARY=pythonfmu``.  Also: the build option and its errors, the build info,
+``jointfmu info``, ``fmpy.validation.validate_fmu``.
+"""
+from __future__ import annotations
+
+import json
+import math
+import shutil
+import zipfile
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+pytest.importorskip("fmpy")
+from fmpy.validation import validate_fmu  # noqa: E402
+
+from jointfmu.build import _compile_shell, build_fmu, format_fmu_info, read_fmu_info  # noqa: E402
+from jointfmu.errors import BuildError  # noqa: E402
+from jointfmu.params import load_parameter_set  # noqa: E402
+
+from test_fmu import Slave, _drive, assert_close_to_reference, modal_force_of  # noqa: E402
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+NOMINAL = EXAMPLES / "tray_nominal.toml"
+
+
+def _can_compile() -> bool:
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as d:
+        return _compile_shell(Path(d), "probe")[0] is not None
+
+
+needs_cc = pytest.mark.skipif(not _can_compile(), reason="the native shell cannot be compiled here")
+BINARIES = [pytest.param("native", marks=needs_cc), "pythonfmu"]
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory):
+    out = tmp_path_factory.mktemp("binaries")
+    made = {}
+    for kind in ("native", "pythonfmu"):
+        try:
+            made[kind] = build_fmu(NOMINAL, out / f"{kind}.fmu", binary=kind)
+        except BuildError:
+            made[kind] = None
+    return made
+
+
+@pytest.fixture
+def open_slave(built):
+    made = []
+
+    def make(kind, instance="jf"):
+        if built[kind] is None:
+            pytest.skip(f"no {kind} build")
+        s = Slave(built[kind].path, instance)
+        made.append(s)
+        return s
+    yield make
+    for s in made:
+        s.close()
+
+
+@pytest.fixture(scope="module")
+def ps():
+    return load_parameter_set(NOMINAL)
+
+
+# ------------------------------------------------------------------------------- the build
+@needs_cc
+def test_native_build_carries_the_shell_and_validates(built):
+    r = built["native"]
+    assert r.binary["kind"] == "native"
+    assert validate_fmu(str(r.path)) == []
+    with zipfile.ZipFile(r.path) as z:
+        info = json.loads(z.read("resources/jointfmu_build.json"))
+        lib = z.read(f"binaries/linux64/{r.model_identifier}.so")
+    assert info["binary"]["kind"] == "native" and info["binary"]["platform"] == "linux64"
+    from pythonfmu.builder import FmuBuilder  # noqa: F401
+    import pythonfmu
+    theirs = Path(pythonfmu.__file__).parent / "resources" / "binaries" / "linux64"
+    assert lib != next(theirs.glob("*.so")).read_bytes()
+    text = format_fmu_info(read_fmu_info(r.path))
+    assert "FMU binary:        jointfmu's native FMI shell for linux64" in text
+
+
+def test_pythonfmu_build_keeps_pythonfmus_binary(built):
+    r = built["pythonfmu"]
+    assert r.binary["kind"] == "pythonfmu" and "binary='pythonfmu'" in r.binary["reason"]
+    assert validate_fmu(str(r.path)) == []
+    import pythonfmu
+    theirs = Path(pythonfmu.__file__).parent / "resources" / "binaries" / "linux64"
+    with zipfile.ZipFile(r.path) as z:
+        assert z.read(f"binaries/linux64/{r.model_identifier}.so") == \
+            next(theirs.glob("*.so")).read_bytes()
+    assert "FMU binary:        pythonfmu's (" in format_fmu_info(read_fmu_info(r.path))
+
+
+def test_unknown_binary_choice_named(tmp_path, monkeypatch):
+    with pytest.raises(BuildError, match=r"binary = 'fast' .*allowed are 'auto', 'native', "
+                                         r"'pythonfmu'"):
+        build_fmu(NOMINAL, tmp_path / "x.fmu", binary="fast")
+    monkeypatch.setenv("JOINTFMU_FMU_BINARY", "c")
+    with pytest.raises(BuildError, match=r"\$JOINTFMU_FMU_BINARY = 'c'"):
+        build_fmu(NOMINAL, tmp_path / "x.fmu")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_without_a_compiler_auto_keeps_pythonfmu_and_native_fails(tmp_path, monkeypatch):
+    """No compiler: "auto" builds with pythonfmu's binary and records why; "native" is a
+    BuildError naming the reason, and an existing FMU at the output stays as it was."""
+    monkeypatch.setenv("CC", str(tmp_path / "no-such-cc"))
+    r = build_fmu(NOMINAL, tmp_path / "auto.fmu", binary="auto")
+    assert r.binary["kind"] == "pythonfmu" and "no C compiler" in r.binary["reason"]
+    info = read_fmu_info(r.path)
+    assert info["build_info"]["binary"]["kind"] == "pythonfmu"
+    assert "no C compiler" in format_fmu_info(info)
+    before = r.path.read_bytes()
+    with pytest.raises(BuildError, match=r"native FMU binary cannot be built: no C compiler"):
+        build_fmu(NOMINAL, r.path, binary="native")
+    assert r.path.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["auto.fmu"]
+
+
+@pytest.mark.skipif(shutil.which("cc") is None, reason="needs cc")
+def test_compile_error_reported(tmp_path, monkeypatch):
+    fake = tmp_path / "cc"
+    fake.write_text("#!/bin/sh\necho 'shell.c:1: error: something is wrong' >&2\nexit 1\n")
+    fake.chmod(0o755)
+    monkeypatch.setenv("CC", str(fake))
+    with pytest.raises(BuildError, match=r"compiling fmi2_shell.c with .* failed \(exit 1\): "
+                                         r"shell.c:1: error: something is wrong"):
+        build_fmu(NOMINAL, tmp_path / "n.fmu", binary="native")
+    assert not (tmp_path / "n.fmu").exists()
+
+
+# -------------------------------------------------------------------- behaviour, both binaries
+@pytest.mark.parametrize("kind", BINARIES)
+def test_reference_run(open_slave, ps, kind):
+    """Point-force sweep with base acceleration, FMU2Slave loop, vs the SciPy reference."""
+    dt = 2e-4
+    t = np.arange(601) * dt
+    F = 20.0 * np.sin(2 * np.pi * (60.0 * t + 300.0 * t ** 2))
+    a = 3.0 * np.sin(2 * np.pi * 90.0 * t)
+    s = open_slave(kind)
+    s.init()
+    names = [f"mode[{i + 1}].q" for i in range(len(ps.modes))]
+    out = s.run(t, {"point.shaker.force": F, "base.acceleration": a}, names)
+    fm = modal_force_of(ps, point_forces={"shaker": F}, base_acc=a, M=len(t))
+    assert_close_to_reference(ps, t, fm, out, f"{kind} binary")
+
+
+@needs_cc
+def test_both_binaries_give_the_same_numbers(open_slave):
+    """The same inputs through either binary: the same outputs, bit for bit."""
+    rows = {}
+    for kind in ("native", "pythonfmu"):
+        s = open_slave(kind, kind)
+        s.init()
+        rows[kind] = _drive(s, 0.0, 150, 2e-4, 11)
+    assert np.array_equal(rows["native"], rows["pythonfmu"])
+
+
+@pytest.mark.parametrize("kind", BINARIES)
+def test_nan_input_refused_with_message(open_slave, kind):
+    s = open_slave(kind)
+    s.init()
+    dt = 2e-4
+    _drive(s, 0.0, 20, dt, 8)
+    qs = [n for n in s.outputs if n.endswith(".q")]
+    before = s.get(qs)
+    s.set({"point.shaker.force": math.nan})
+    s.set({"base.acceleration": 1.0})           # a valid input after the refused one
+    with pytest.raises(Exception) as exc:
+        s.fmu.doStep(currentCommunicationPoint=20 * dt, communicationStepSize=dt)
+    assert getattr(exc.value, "status", None) == 2          # fmi2Discard
+    assert any(st == 3 and "point.shaker.force" in msg and "finite" in msg for st, msg in s.log)
+    assert np.array_equal(s.get(qs), before)         # state kept
+    s.set({"point.shaker.force": 1.0})          # a valid value again: steps
+    s.fmu.doStep(currentCommunicationPoint=20 * dt, communicationStepSize=dt)
+    assert s.fmu.getReal([s.vr["point.shaker.force"], s.vr["base.acceleration"]]) == [1.0, 1.0]
+
+
+@pytest.mark.parametrize("kind", BINARIES)
+def test_input_beyond_the_allowed_magnitude_refused(open_slave, kind):
+    s = open_slave(kind)
+    s.init()
+    s.set({"point.shaker.force": 2e12})
+    with pytest.raises(Exception):
+        s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-4)
+    assert any(st == 3 and "point.shaker.force" in msg and "1e+12" in msg for st, msg in s.log)
+
+
+@pytest.mark.parametrize("kind", BINARIES)
+def test_state_round_trip(open_slave, kind):
+    """fmi2GetFMUstate/fmi2SetFMUstate and serialization into a new instance (sec. 2.1.8):
+    the continued run repeats bit for bit, inputs set after saving do not leak into it."""
+    s = open_slave(kind, "a")
+    s.init()
+    dt = 2e-4
+    _drive(s, 0.0, 60, dt, 1)
+    state = s.fmu.getFMUstate()
+    data = s.fmu.serializeFMUstate(state)
+    inputs_then = s.fmu.getReal([s.vr["point.shaker.force"], s.vr["base.acceleration"]])
+    first = _drive(s, 60 * dt, 40, dt, 2)
+    s.set({"point.shaker.force": 99.0})        # set, never stepped: the state replaces it
+    s.fmu.setFMUstate(state)
+    s.fmu.freeFMUstate(state)
+    assert s.fmu.getReal([s.vr["point.shaker.force"], s.vr["base.acceleration"]]) == inputs_then
+    second = _drive(s, 60 * dt, 40, dt, 2)
+    b = open_slave(kind, "b")
+    b.init()
+    st_b = b.fmu.deSerializeFMUstate(data)
+    b.fmu.setFMUstate(st_b)
+    b.fmu.freeFMUstate(st_b)
+    third = _drive(b, 60 * dt, 40, dt, 2)
+    assert np.array_equal(first, second) and np.array_equal(first, third)
+
+
+@pytest.mark.parametrize("kind", BINARIES)
+def test_direct_feedthrough(open_slave, ps, kind):
+    """Set an input, read an acceleration: it sees the input without a step (sec. 2.2.8); a
+    second input set changes it again; reading the input gives the value set."""
+    s = open_slave(kind)
+    s.init()
+    _drive(s, 0.0, 5, 2e-4, 4)
+    shaker = next(p for p in ps.points if p.label == "shaker")
+    tip = next(p for p in ps.points if p.label == "tip")
+    a0 = s.get(["point.tip.a"])[0]
+    for F in (7.0, -3.0):
+        s.set({"point.shaker.force": F})
+        a = s.get(["point.tip.a"])[0]
+        s.set({"point.shaker.force": 0.0})
+        a_zero = s.get(["point.tip.a"])[0]
+        assert a - a_zero == pytest.approx(F * float(np.dot(tip.shape, shaker.shape)), rel=1e-9)
+    s.set({"point.shaker.force": 2.5})
+    assert s.get(["point.shaker.force", "point.tip.a"])[0] == 2.5
+    assert np.isfinite(a0)
+
+
+@pytest.mark.parametrize("kind", BINARIES)
+def test_mixed_get_real_and_unknown_reference(open_slave, ps, kind):
+    """One fmi2GetReal over parameters, inputs and outputs equals reading each alone; an
+    unknown value reference in a set is reported and changes nothing."""
+    s = open_slave(kind)
+    s.init()
+    _drive(s, 0.0, 10, 2e-4, 3)
+    s.set({"point.shaker.force": 4.5})
+    names = ["point.tip.a", "mode[2].joint.chi", "point.shaker.force", "mode[1].q", "base.force"]
+    together = s.get(names)
+    alone = np.array([s.get([n])[0] for n in names])
+    assert np.array_equal(together, alone) and together[2] == 4.5
+    before = s.get()
+    s.fmu.setReal([10 ** 6], [1.0])
+    assert any(st == 3 and "1000000" in msg for st, msg in s.log)
+    assert np.array_equal(s.get(), before)
+
+
+# ------------------------------------------------------------------------------ command line
+def test_cli_build_binary_option_and_info(tmp_path, capsys):
+    from jointfmu.cli import main
+
+    out = tmp_path / "p.fmu"
+    assert main(["build", str(NOMINAL), "-o", str(out), "--binary", "pythonfmu"]) == 0
+    assert "FMU binary: pythonfmu's (pythonfmu's binary was asked for" in capsys.readouterr().out
+    assert main(["info", str(out)]) == 0
+    assert "FMU binary:        pythonfmu's" in capsys.readouterr().out
+    assert main(["build", str(NOMINAL), "-o", str(tmp_path / "q.fmu"), "--binary", "fast"]) == 2
+    assert "invalid choice: 'fast'" in capsys.readouterr().err
+    assert not (tmp_path / "q.fmu").exists()
+
+
+@needs_cc
+def test_cli_build_native(tmp_path, capsys):
+    from jointfmu.cli import main
+
+    out = tmp_path / "n.fmu"
+    assert main(["build", str(NOMINAL), "-o", str(out), "--binary", "native"]) == 0
+    assert "FMU binary: jointfmu's native shell (linux64)" in capsys.readouterr().out
+    assert main(["info", str(out)]) == 0
+    assert "jointfmu's native FMI shell for linux64" in capsys.readouterr().out
