@@ -288,3 +288,19 @@ def test_cli_build_native(tmp_path, capsys):
     assert "FMU binary: jointfmu's native shell (linux64)" in capsys.readouterr().out
     assert main(["info", str(out)]) == 0
     assert "jointfmu's native FMI shell for linux64" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("kind", BINARIES)
+def test_rejected_state_keeps_inputs_set_before(open_slave, kind):
+    """fmi2SetFMUstate with a state that is not one of this FMU's: refused with a message; the
+    inputs set just before stay set (read back, and used by the next step)."""
+    s = open_slave(kind)
+    s.init()
+    _drive(s, 0.0, 5, 2e-4, 7)
+    s.set({"point.shaker.force": 3.25})
+    a_before = s.get(["point.tip.a"])[0]
+    bad = s.fmu.deSerializeFMUstate(b"not a state")
+    s.fmu.setFMUstate(bad)
+    s.fmu.freeFMUstate(bad)
+    assert any(st == 3 and "FMU state rejected" in msg for st, msg in s.log)
+    assert s.get(["point.shaker.force", "point.tip.a"]).tolist() == [3.25, a_before]

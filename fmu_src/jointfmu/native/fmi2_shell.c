@@ -12,6 +12,11 @@
  * such as fmpy, or a C host that loaded libpython with RTLD_GLOBAL).  If the interpreter is not
  * initialized yet, fmi2Instantiate initializes it (and never finalizes it).
  *
+ * The fast path touches only the two exported buffers and takes no GIL: a host does not call
+ * the functions of one instance concurrently (the FMI 2.0.x standard, sec. 2.1, does not ask
+ * them to be thread-safe), and Python reads those buffers only inside calls the shell makes,
+ * after it has handed its writes over.
+ *
  * Types, function names and calling rules: FMI 2.0.x standard, sec. 2.1 (common API) and
  * sec. 4.2 (co-simulation API).  The few types needed are declared here.
  */
@@ -1016,11 +1021,11 @@ FMI2_EXPORT fmi2Status fmi2SetFMUstate(fmi2Component c, fmi2FMUstate FMUstate)
     }
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2OK;
-    s->n_dirty = 0; /* the inputs written since are replaced by the state's */
-    if (s->dirty_mark && s->n_vars) memset(s->dirty_mark, 0, (size_t)s->n_vars);
-    PyObject *r = PyObject_CallMethod(s->slave, "_set_fmu_state", "(O)", st->obj);
+    /* inputs written since are the slave's first (a state it rejects leaves them in place) */
+    PyObject *r = flush_inputs(s) == 0
+        ? PyObject_CallMethod(s->slave, "_set_fmu_state", "(O)", st->obj) : NULL;
     if (!r) {
-        report_exception(s, "fmi2SetFMUstate");
+        if (PyErr_Occurred()) report_exception(s, "fmi2SetFMUstate");
         status = fmi2Error;
     } else {
         Py_DECREF(r);
