@@ -304,3 +304,29 @@ def test_rejected_state_keeps_inputs_set_before(open_slave, kind):
     s.fmu.freeFMUstate(bad)
     assert any(st == 3 and "FMU state rejected" in msg for st, msg in s.log)
     assert s.get(["point.shaker.force", "point.tip.a"]).tolist() == [3.25, a_before]
+
+
+@needs_cc
+def test_native_instantiate_without_resources_fails_with_message(built):
+    """A broken unpacked FMU (no slavemodule.txt): fmi2Instantiate returns NULL and the logger
+    gets a message naming the missing file; the host process goes on."""
+    import fmpy
+    from fmpy import extract, read_model_description
+    from fmpy.fmi2 import (FMU2Slave, fmi2CallbackAllocateMemoryTYPE, fmi2CallbackFreeMemoryTYPE,
+                           fmi2CallbackFunctions, fmi2CallbackLoggerTYPE)
+
+    path = built["native"].path
+    md = read_model_description(str(path))
+    d = Path(extract(str(path)))
+    (d / "resources" / "slavemodule.txt").unlink()
+    got = []
+    cb = fmi2CallbackFunctions()
+    cb.logger = fmi2CallbackLoggerTYPE(lambda env, inst, st, cat, msg: got.append((st, msg)))
+    cb.allocateMemory = fmi2CallbackAllocateMemoryTYPE(fmpy.calloc)
+    cb.freeMemory = fmi2CallbackFreeMemoryTYPE(fmpy.free)
+    fmu = FMU2Slave(guid=md.guid, unzipDirectory=str(d),
+                    modelIdentifier=md.coSimulation.modelIdentifier, instanceName="broken")
+    with pytest.raises(Exception):
+        fmu.instantiate(callbacks=cb, loggingOn=True)
+    assert any(st == 3 and b"slavemodule.txt" in msg for st, msg in got), got
+    shutil.rmtree(d, ignore_errors=True)

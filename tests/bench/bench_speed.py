@@ -335,7 +335,8 @@ def bench_fmu(params, work: Path, quick):
 
     pfile = save_parameter_set(params, work / "speedbench.toml")
     t = time.perf_counter()
-    ours = build_fmu(pfile, work / "speedbench.fmu").path
+    built = build_fmu(pfile, work / "speedbench.fmu")
+    ours = built.path
     build_s = time.perf_counter() - t
 
     s, md = _open_fmu(ours)
@@ -357,7 +358,8 @@ def bench_fmu(params, work: Path, quick):
     n = 100 if quick else 200
     rep = 8 if quick else 20
     drive = 4.0 * params.modes[0].joint.Fs
-    res = {"build_s": build_s, "n_inputs": len(ins), "n_outputs": len(outs)}
+    res = {"build_s": build_s, "n_inputs": len(ins), "n_outputs": len(outs),
+           "binary": built.binary.get("kind", "pythonfmu")}
     cases = {
         "typical": (typ_in, typ_out, len(typ_in), len(typ_out)),
         "all": (ins, outs, len(ins), len(outs)),
@@ -685,7 +687,8 @@ def main(argv=None) -> int:
 
     fm, fmu_path = bench_fmu(params, work, quick)
     print(f"\nFMU through fmpy FMU2Slave, 1 ms step ({fm['mode_steps_per_step']} mode-steps), "
-          f"{fm['n_inputs']} inputs, {fm['n_outputs']} outputs; built in {fm['build_s']:.2f} s")
+          f"{fm['n_inputs']} inputs, {fm['n_outputs']} outputs; built in {fm['build_s']:.2f} s, "
+          f"{fm['binary']} binary (JOINTFMU_FMU_BINARY=pythonfmu for pythonfmu's)")
     fmu_factor = fm["empty_doStep_only_us"] / ISSUE_EMPTY_DOSTEP_US
     us_target_here = 1e3 / TARGET_REALTIME_FACTOR * fmu_factor
     print(f"  empty doStep alone: {fm['empty_doStep_only_us']:.2f} us (the issue's machine: "
@@ -744,6 +747,7 @@ def main(argv=None) -> int:
         "kernel": k["kernel"],
         "kernel_ns_per_mode_step": round(k["kernel_ns_per_mode_step"], 2),
         "fallback_ns_per_mode_step": round(k["fallback_ns_per_mode_step"], 1),
+        "fmu_binary": fm["binary"],
         "fmu_realtime_factor": round(typ["realtime_factor"], 1),
         "fmu_realtime_factor_arrays": round(typ_arrays["realtime_factor"], 1),
         "fmu_realtime_factor_mixed": round(fm["typical_mixed"]["realtime_factor"], 1),

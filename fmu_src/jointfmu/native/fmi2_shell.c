@@ -128,11 +128,12 @@ static int category_on(const Shell *s, const char *category)
 }
 
 /* The logger's message is a printf format (sec. 2.1.5): a literal '%' is written as "%%". */
-static void send_log(Shell *s, fmi2Status status, const char *category, const char *msg)
+static void emit(const fmi2CallbackFunctions *cb, const char *name, fmi2Status status,
+                 const char *category, const char *msg)
 {
-    if (!s->cb.logger || !category_on(s, category)) return;
+    if (!cb || !cb->logger) return;
     if (!strchr(msg, '%')) {
-        s->cb.logger(s->cb.componentEnvironment, s->instance_name, status, category, msg);
+        cb->logger(cb->componentEnvironment, name, status, category, msg);
         return;
     }
     size_t n = strlen(msg), extra = 0;
@@ -145,8 +146,13 @@ static void send_log(Shell *s, fmi2Status status, const char *category, const ch
         if (msg[k] == '%') *w++ = '%';
     }
     *w = '\0';
-    s->cb.logger(s->cb.componentEnvironment, s->instance_name, status, category, esc);
+    cb->logger(cb->componentEnvironment, name, status, category, esc);
     free(esc);
+}
+
+static void send_log(Shell *s, fmi2Status status, const char *category, const char *msg)
+{
+    if (category_on(s, category)) emit(&s->cb, s->instance_name, status, category, msg);
 }
 
 static const char *status_category(fmi2Status status)
@@ -173,9 +179,7 @@ static void shell_log(Shell *s, fmi2Status status, const char *fmt, ...)
 /* Before an instance exists (a failed fmi2Instantiate) the host's logger is all there is. */
 static void early_log(const fmi2CallbackFunctions *cb, fmi2String name, const char *msg)
 {
-    if (cb && cb->logger)
-        cb->logger(cb->componentEnvironment, name ? name : "", fmi2Error, "logStatusError", "%s",
-                   msg);
+    emit(cb, name ? name : "", fmi2Error, "logStatusError", msg);
 }
 
 /* Forward and empty the slave's log queue (GIL held).  Messages reach the host only while
