@@ -619,6 +619,21 @@ FMI2_EXPORT fmi2Component fmi2Instantiate(fmi2String instanceName, fmi2Type fmuT
         early_log(functions, instanceName, "fmi2Instantiate: cannot start the Python interpreter");
         return NULL;
     }
+    {
+        /* compiled against this Python's headers (the full C API): another minor version in
+         * the host would misread its objects, so refuse it by name */
+        char want[32], msg[512];
+        snprintf(want, sizeof want, "%d.%d.", PY_MAJOR_VERSION, PY_MINOR_VERSION);
+        const char *have = Py_GetVersion();
+        if (strncmp(have, want, strlen(want)) != 0) {
+            snprintf(msg, sizeof msg, "fmi2Instantiate: this FMU's binary was built for Python "
+                     "%d.%d; the host runs Python %.20s: use Python %d.%d, or rebuild the FMU "
+                     "with this host's Python", PY_MAJOR_VERSION, PY_MINOR_VERSION, have,
+                     PY_MAJOR_VERSION, PY_MINOR_VERSION);
+            early_log(functions, instanceName, msg);
+            return NULL;
+        }
+    }
     Shell *s = calloc(1, sizeof(Shell));
     if (!s) return NULL;
     s->magic = INSTANCE_MAGIC;
