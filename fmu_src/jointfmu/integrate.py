@@ -537,6 +537,22 @@ class ModalSimulator:
     def _scalar(self, name: str) -> float:
         return float(self.output_values()[self.output_index(name)])
 
+    def input_buffer(self) -> array.array:
+        """The held inputs as the simulator's own flat ``array.array("d")`` (positions from
+        :meth:`input_index`), for a caller that writes them without Python, as the FMU's native
+        binary does.  Such a caller writes only values :meth:`set_input_value` would accept and
+        calls :meth:`inputs_written` before anything else reads the simulator."""
+        return self._ubuf
+
+    def inputs_written(self) -> None:
+        """The input buffer was written from outside: outputs are recomputed when next read."""
+        self._fresh = False
+
+    @property
+    def outputs_current(self) -> bool:
+        """Whether the output buffer already agrees with the state and the inputs."""
+        return self._fresh
+
     def output_buffer(self) -> array.array:
         """Every output at once as a flat ``array.array("d")`` holding the same numbers as
         :meth:`output_values` (positions from :meth:`output_index`); indexing it gives Python

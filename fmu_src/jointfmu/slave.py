@@ -323,7 +323,8 @@ class JointSlave(Fmi2Slave):
             in_pos[vr] = p
         for vr, p in self._out_pos.items():
             out_pos[vr] = p
-        return (sim._ubuf, sim._ybuf, tuple(in_pos), tuple(out_pos), sim._base_pos,
+        base = sim.input_index("base_acc") if sim.model.has_base else len(sim.input_buffer()) - 1
+        return (sim.input_buffer(), sim.output_buffer(), tuple(in_pos), tuple(out_pos), base,
                 bool(sim.model.has_base), float(MAX_INPUT), bool(self._pending))
 
     def _native_take(self, vrs) -> None:
@@ -332,10 +333,10 @@ class JointSlave(Fmi2Slave):
         sim = self._sim
         if sim is None:
             return
-        ubuf, in_pos, values = sim._ubuf, self._in_pos, self._values
+        ubuf, in_pos, values = sim.input_buffer(), self._in_pos, self._values
         for vr in vrs:
             values[vr] = ubuf[in_pos[vr]]
-        sim._fresh = False
+        sim.inputs_written()
 
     def _native_do_step(self, current_time: float, step_size: float, vrs) -> int:
         """fmi2DoStep from the shell, one Python call: take the inputs ``vrs`` it wrote, step.
@@ -347,7 +348,7 @@ class JointSlave(Fmi2Slave):
         ok = self.do_step(current_time, step_size)
         new = self._sim
         return ((1 if ok else 0) | (2 if new is not sim else 0)
-                | (4 if new is not None and new._fresh else 0))
+                | (4 if new is not None and new.outputs_current else 0))
 
     def _native_refresh(self, vrs) -> int:
         """Bring the outputs in line with the inputs (the shell reads them next).  Returns bit
@@ -362,7 +363,7 @@ class JointSlave(Fmi2Slave):
             if sim is None:
                 return 2
             sim.output_buffer()
-            return (1 if sim._fresh else 0) | (2 if self._pending else 0)
+            return (1 if sim.outputs_current else 0) | (2 if self._pending else 0)
         except Exception:     # get_real reports it (an output that cannot be evaluated: NaN)
             return 2
 
