@@ -256,15 +256,14 @@ def _compile_shell(folder: Path, ident: str) -> tuple[Path | None, str]:
     return out, ""
 
 
-def _replace_binary(zip_in: zipfile.ZipFile, item: zipfile.ZipInfo, native: Path | None,
-                    ident: str) -> bytes:
-    """The bytes of archive member ``item``: the native library in place of pythonfmu's binary
-    for this platform, every other member unchanged."""
-    if native is not None and item.filename == f"binaries/{_platform_folder()}/{native.name}" \
-            and native.stem == ident:
+def _replace_binary(zip_in: zipfile.ZipFile, item: zipfile.ZipInfo,
+                    native: Path | None) -> bytes:
+    """The bytes of archive member ``item``: the native library (named after the model
+    identifier, as pythonfmu's binary is) in place of pythonfmu's binary for this platform,
+    every other member unchanged."""
+    if native is not None and item.filename == f"binaries/{_platform_folder()}/{native.name}":
         return native.read_bytes()
     return zip_in.read(item.filename)
-
 
 
 # --------------------------------------------------------------------------------- build
@@ -503,7 +502,7 @@ def _complete_fmu(raw: Path, dest: Path, params: ParameterSet, ident: str, core:
             for item in zin.infolist():
                 if item.filename == "modelDescription.xml" or "__pycache__" in item.filename:
                     continue
-                zout.writestr(item, _replace_binary(zin, item, native, ident),
+                zout.writestr(item, _replace_binary(zin, item, native),
                               compress_type=zipfile.ZIP_DEFLATED)
             if native is not None:    # a platform pythonfmu ships no binary for (macOS)
                 target = f"binaries/{_platform_folder()}/{native.name}"
