@@ -17,9 +17,9 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
-from jointfmu import characterize as C
+from jointfmu.analysis import characterize as C
 from jointfmu.errors import InputError
-from jointfmu.iwan import backbone, backbone_tangent, dissipation_per_cycle, joint_constants
+from jointfmu.physics.iwan import backbone, backbone_tangent, dissipation_per_cycle, joint_constants
 from jointfmu.params import JointParams, Mode, load_parameter_set
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
@@ -231,7 +231,7 @@ def test_feldman_estimate_differs_by_frequency_slope(nominal_ringdown):
 def test_fmu_ringdown_equals_core():
     """The FMU (built by build.py, run by fmpy) and the core give the same ring-down, and it is
     identified the same: the report's default runner is the FMU."""
-    from jointfmu.report import FmuRunner
+    from jointfmu.analysis.runners import FmuRunner
 
     fmu = C.ring_down(NOMINAL, FmuRunner(), start=1.0, end=0.3, modes=[3])
     core = C.ring_down(NOMINAL, "core", start=1.0, end=0.3, modes=[3])
@@ -248,14 +248,13 @@ def test_bad_inputs_name_the_problem():
     m = NOMINAL.modes[0]
     with pytest.raises(InputError, match="amplitudes: must be a non-empty 1-D array"):
         C.mode_curves(m, [-1.0])
-    with pytest.raises(InputError, match="runner = 'scipy': allowed are 'core' or a callable"):
-        C.get_runner("scipy")
-    with pytest.raises(InputError, match="runner = 'fmu': pass jointfmu.report.FmuRunner"):
-        C.get_runner("fmu")
-    from jointfmu.report import get_runner
+    from jointfmu.analysis.runners import CoreRunner, FmuRunner, get_runner
 
-    with pytest.raises(InputError, match="runner = 'scipy': allowed are 'fmu' \\(default\\)"):
-        get_runner("scipy")
+    with pytest.raises(InputError, match="runner = 'scipy': allowed are 'core', 'fmu' or a callable"):
+        get_runner("scipy", default="core")
+    assert isinstance(get_runner(None, default="core"), CoreRunner)
+    assert isinstance(get_runner(None, default="fmu"), FmuRunner)
+    assert isinstance(get_runner("fmu", default="core"), FmuRunner)
     with pytest.raises(InputError, match="need 0 < end < start"):
         C.ring_down(NOMINAL, "core", start=0.1, end=0.5)
     t = np.arange(1000) * 1e-3
@@ -273,7 +272,7 @@ def test_report_is_complete_and_atomic(tmp_path, monkeypatch):
     caution, and links PNGs that exist; a failing second run leaves the first report untouched
     and no temporary folder behind."""
     from jointfmu import __version__
-    from jointfmu import report as R
+    from jointfmu.report.characterization import characterization as R
 
     out = tmp_path / "rep"
     index = R.write_report([EXAMPLES / "tray_undertorqued.toml"], out, runner="core")
@@ -301,7 +300,7 @@ def test_report_is_complete_and_atomic(tmp_path, monkeypatch):
 
 
 def test_report_bad_input():
-    from jointfmu import report as R
+    from jointfmu.report.characterization import characterization as R
     from jointfmu.errors import ParameterError
 
     with pytest.raises(InputError, match="at least one parameter set"):

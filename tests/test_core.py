@@ -1,14 +1,14 @@
 """The modal core (ModalSimulator) against exact linear solutions, Segalman's closed forms and the
-SciPy reference integration (jointfmu.reference, independent event-driven formulation)."""
+SciPy reference integration (jointfmu.physics.reference, independent event-driven formulation)."""
 import math
 
 import numpy as np
 import pytest
 
-from jointfmu import reference
+from jointfmu.physics import reference
 from jointfmu.errors import InputError
-from jointfmu.integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator
-from jointfmu.iwan import dissipation_per_cycle, joint_constants
+from jointfmu.physics.integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator
+from jointfmu.physics.iwan import dissipation_per_cycle, joint_constants
 from jointfmu.params import parse_parameter_set
 
 TOL_DEFAULT = 1e-3  # core vs reference at default settings, fraction of peak (issue 2)

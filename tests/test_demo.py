@@ -23,10 +23,10 @@ pytest.importorskip("matplotlib")
 import pandas as pd  # noqa: E402
 
 from jointfmu.cli import main  # noqa: E402
-from jointfmu.demo import CAUTION, find_examples, run_demo  # noqa: E402
+from jointfmu.cli.demo import CAUTION, find_examples, run_demo  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
-from jointfmu.system import LOAD_CASES  # noqa: E402
+from jointfmu.cosim.system import LOAD_CASES  # noqa: E402
 
 N_BUILDS, N_CASES = 3, len(LOAD_CASES)
 
@@ -134,7 +134,7 @@ def test_report_written(demo):
 
 def test_linear_models_at_the_worst_case_amplitudes(demo):
     _, out, _ = demo
-    from jointfmu.linear import LinearModel, equivalent_linear
+    from jointfmu.analysis.linear import LinearModel, equivalent_linear
 
     df = pd.read_parquet(out / "system" / "results.parquet")
     for f, slug in zip(find_examples(), ("sn-0002", "sn-0003", "sn-0002-r1")):
@@ -186,7 +186,7 @@ def test_demo_bad_params_file_fails_cleanly(tmp_path, capsys):
     (["--scheduler", "tcp://127.0.0.1:1"], "cannot reach the Dask scheduler"),
 ])
 def test_demo_bad_scheduler_fails_before_writing(tmp_path, capsys, argv, match, monkeypatch):
-    import jointfmu.sweep as sw
+    import jointfmu.cosim.sweep as sw
 
     real = sw.dask_client
     monkeypatch.setattr(sw, "dask_client", lambda s=None, n=2: real(s, n, timeout=1.0))

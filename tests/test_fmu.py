@@ -1,6 +1,6 @@
 """The built FMU through fmpy (FMI 2.0 co-simulation).
 
-Reference for the dynamics: the SciPy reference integration (``jointfmu.reference``, DOP853
+Reference for the dynamics: the SciPy reference integration (``jointfmu.physics.reference``, DOP853
 branch by branch), fed the same held modal force.  The modal force of point forces and base
 acceleration is formed here independently of the product: f = sum_j phi_j F_j - Gamma a_base
 (mass-normalized modal equations of a base-mounted structure in relative coordinates, common
@@ -25,8 +25,8 @@ from fmpy.fmi2 import (FMU2Slave, fmi2CallbackAllocateMemoryTYPE,  # noqa: E402
                        fmi2CallbackFreeMemoryTYPE, fmi2CallbackFunctions, fmi2CallbackLoggerTYPE)
 from fmpy.validation import validate_fmu  # noqa: E402
 
-from jointfmu import reference  # noqa: E402
-from jointfmu.build import build_fmu, read_fmu_info  # noqa: E402
+from jointfmu.physics import reference  # noqa: E402
+from jointfmu.fmu.build import build_fmu, read_fmu_info  # noqa: E402
 from jointfmu.params import check_mode_values, load_parameter_set  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
@@ -529,7 +529,7 @@ def test_build_forgets_its_staging_modules(fmus):
 
 def test_new_source_gives_new_names(psets, monkeypatch):
     """Two versions of jointfmu must not share module names in one process either."""
-    from jointfmu import build as jbuild
+    from jointfmu.fmu import build as jbuild
     ps = psets["tray_nominal"]
     before = jbuild.fmu_names(ps)
     monkeypatch.setattr(jbuild, "_source_hash", lambda: "0" * 64)

@@ -22,7 +22,7 @@ import pytest
 pytest.importorskip("fmpy")
 from fmpy.validation import validate_fmu  # noqa: E402
 
-from jointfmu.build import _compile_shell, build_fmu, format_fmu_info, read_fmu_info  # noqa: E402
+from jointfmu.fmu.build import _compile_shell, build_fmu, format_fmu_info, read_fmu_info  # noqa: E402
 from jointfmu.errors import BuildError  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
 

@@ -3,7 +3,7 @@
 A host that is not Python: the master loads libpython (RTLD_GLOBAL), then the FMU binary, and runs
 instantiate, setup, initialization, set/get real, doStep and get/set FMU state (FMI 2.0 standard,
 sec. 2.1 and 4.2).  Its trajectory is checked against the SciPy reference
-(``jointfmu.reference``), and the replay after fmi2SetFMUstate against the first run, bit for bit.
+(``jointfmu.physics.reference``), and the replay after fmi2SetFMUstate against the first run, bit for bit.
 """
 from __future__ import annotations
 
@@ -22,8 +22,8 @@ import pytest
 pytest.importorskip("fmpy")
 from fmpy import read_model_description  # noqa: E402
 
-from jointfmu import reference  # noqa: E402
-from jointfmu.build import build_fmu  # noqa: E402
+from jointfmu.physics import reference  # noqa: E402
+from jointfmu.fmu.build import build_fmu  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
 
 HERE = Path(__file__).resolve().parent

@@ -1,6 +1,6 @@
 """``jointfmu build``, ``info`` and ``simulate``: outputs, default paths, atomic writes, bad input.
 
-The simulated CSV is checked against the SciPy reference (``jointfmu.reference``) with the modal
+The simulated CSV is checked against the SciPy reference (``jointfmu.physics.reference``) with the modal
 force of the held point force formed here: f = phi_shaker F (mass-normalized modal equations,
 common practice).
 """
@@ -16,8 +16,8 @@ import pytest
 pytest.importorskip("fmpy")
 pytest.importorskip("pythonfmu")
 
-from jointfmu import build as jbuild  # noqa: E402
-from jointfmu import reference  # noqa: E402
+from jointfmu.fmu import build as jbuild  # noqa: E402
+from jointfmu.physics import reference  # noqa: E402
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import BuildError  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402

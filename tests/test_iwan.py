@@ -10,7 +10,7 @@ import pytest
 
 from jenkins import JenkinsArray
 from jointfmu.errors import ParameterError
-from jointfmu.iwan import IwanJoint, backbone, backbone_tangent, dissipation_per_cycle, joint_constants
+from jointfmu.physics.iwan import IwanJoint, backbone, backbone_tangent, dissipation_per_cycle, joint_constants
 
 FS, KT = 2.5, 4.0e4
 CASES = [(-0.5, 0.2), (-0.8, 0.0), (0.0, 1.0), (-0.2, 0.5), (-0.95, 0.1)]

@@ -1,6 +1,6 @@
 """The compiled (Numba) joint kernel against the plain-Python kernel, and its selection.
 
-The plain-Python kernel (``jointfmu._kernel`` run by the interpreter) is the reference here: the
+The plain-Python kernel (``jointfmu.physics.kernel`` run by the interpreter) is the reference here: the
 compiled kernel is the same source compiled, so the results must agree to rounding (<= 1e-12
 relative; in practice bit for bit).  The run is built to pass through every branch of the joint
 memory: reversals, wiping-out, macro-slip, merges under the tolerance and forced merges of a full
@@ -18,7 +18,7 @@ import pytest
 
 from jointfmu import JointParams, Mode, ParameterSet, Point, Provenance
 from jointfmu.errors import InputError
-from jointfmu.integrate import ModalSimulator, kernel_info
+from jointfmu.physics.integrate import ModalSimulator, kernel_info
 
 numba = pytest.importorskip("numba")
 if os.environ.get("JOINTFMU_KERNEL", "").strip().lower() == "python":
@@ -125,7 +125,7 @@ def test_bound_entry_equals_numba_dispatch():
     """The simulator calls the compiled functions through entry points bound to its array types
     (no per-call dispatch, ``_compiled.bind``); the same run through Numba's ordinary dispatch
     gives the same bits, outputs refreshed between steps included."""
-    from jointfmu import _compiled
+    from jointfmu.physics import compiled as _compiled
 
     bound = ModalSimulator(three_modes(), kernel="compiled", merge_tol=1e-5, stack_capacity=8)
     plain = ModalSimulator(three_modes(), kernel="compiled", merge_tol=1e-5, stack_capacity=8)
@@ -148,10 +148,10 @@ def test_unknown_kernel_is_refused_with_the_allowed_values():
 _PROBE = (
     "import json, warnings\n"
     "warnings.simplefilter('always')\n"
-    "from jointfmu.integrate import kernel_info\n"
+    "from jointfmu.physics.integrate import kernel_info\n"
     "info = kernel_info()\n"
     "if info['kernel'] == 'numba':\n"
-    "    from jointfmu import _compiled as C\n"
+    "    from jointfmu.physics import compiled as C\n"
     "    info['file'] = str(C.CACHE_FILE)\n"
     "    info['hits'] = sum(len(d.stats.cache_hits) for d in (C.step_all, C.refresh))\n"
     "    info['misses'] = sum(len(d.stats.cache_misses) for d in (C.step_all, C.refresh))\n"

@@ -18,10 +18,10 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from jointfmu import linear as L
+from jointfmu.analysis import linear as L
 from jointfmu.errors import InputError
-from jointfmu.integrate import ModalSimulator
-from jointfmu.iwan import joint_constants
+from jointfmu.physics.integrate import ModalSimulator
+from jointfmu.physics.iwan import joint_constants
 from jointfmu.params import load_parameter_set
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
-from jointfmu import reference as ref
+from jointfmu.physics import reference as ref
 from jointfmu.errors import InputError, ParameterError
 
 F0 = 100.0                      # Hz, invented demo mode

@@ -1,4 +1,4 @@
-"""Sweeps (``jointfmu.sweep``): Dask gives the numbers a plain loop gives, reruns skip done rows,
+"""Sweeps (``jointfmu.cosim.sweep``): Dask gives the numbers a plain loop gives, reruns skip done rows,
 failures are reported and retried, tables are written atomically, bad input is named.
 
 The reference for the Dask path is the same tasks run one after the other in this process
@@ -17,12 +17,12 @@ pytest.importorskip("pyarrow")
 
 import pandas as pd  # noqa: E402
 
-from jointfmu.build import build_fmu  # noqa: E402
+from jointfmu.fmu.build import build_fmu  # noqa: E402
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
-from jointfmu.sweep import (Task, dask_client, read_table, run_tasks,  # noqa: E402
+from jointfmu.cosim.sweep import (Task, dask_client, read_table, run_tasks,  # noqa: E402
                             system_tasks, write_table)
-from jointfmu.system import SystemSettings  # noqa: E402
+from jointfmu.cosim.system import SystemSettings  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 BUILDS = ("tray_nominal", "tray_worn")
@@ -165,9 +165,9 @@ def test_write_table_is_atomic(tmp_path, monkeypatch):
 
 
 def test_cached_runner_serves_hits_and_computes_misses():
-    from jointfmu.characterize import CoreRunner
+    from jointfmu.analysis.characterize import CoreRunner
     from jointfmu.params import load_parameter_set
-    from jointfmu.sweep import CachedRunner, _RecordingRunner
+    from jointfmu.cosim.sweep import CachedRunner, _RecordingRunner
 
     ps = load_parameter_set(EXAMPLES / "tray_nominal.toml")
     rec = _RecordingRunner(CoreRunner())

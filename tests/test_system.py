@@ -1,4 +1,4 @@
-"""The co-simulation system loop (``jointfmu.system``): the tray FMU with loads model and controller.
+"""The co-simulation system loop (``jointfmu.cosim.system``): the tray FMU with loads model and controller.
 
 References outside the product:
 
@@ -26,11 +26,12 @@ import pytest
 pytest.importorskip("fmpy")
 pytest.importorskip("pythonfmu")
 
-from jointfmu.build import build_fmu, run_fmu  # noqa: E402
+from jointfmu.fmu.build import build_fmu, run_fmu  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.params import load_parameter_set, save_parameter_set  # noqa: E402
-from jointfmu.system import (G0, LOAD_CASES, ActiveDamper, ControllerSettings,  # noqa: E402
-                             FmuStructure, SystemSettings, base_motion, run_case, run_system)
+from jointfmu.cosim.system import (G0, LOAD_CASES, ActiveDamper, ControllerSettings,  # noqa: E402
+                             FmuStructure, SystemSettings, base_motion, run_system)
+from jointfmu.cosim.runs import run_case  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 NOMINAL = EXAMPLES / "tray_nominal.toml"
@@ -267,8 +268,8 @@ def test_loading_an_fmu_first_leaves_building_possible(nominal_fmu, tmp_path):
 
     code = (
         "import sys\n"
-        "from jointfmu.system import FmuStructure\n"
-        "from jointfmu.build import build_fmu\n"
+        "from jointfmu.cosim.system import FmuStructure\n"
+        "from jointfmu.fmu.build import build_fmu\n"
         f"with FmuStructure({str(nominal_fmu)!r}) as s:\n"
         "    s.do_step(0.0, 1e-4)\n"
         "assert not [p for p in sys.path if p.endswith('resources')], sys.path\n"
@@ -286,7 +287,7 @@ def test_loading_an_fmu_first_leaves_building_possible(nominal_fmu, tmp_path):
 def test_three_fmu_system_equals_python_components(nominal_fmu, tmp_path, case):
     from fmpy.validation import validate_fmu
 
-    from jointfmu.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
+    from jointfmu.cosim.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
 
     s = SystemSettings(duration=0.04, controller=ControllerSettings(force_limit=8.0))
     loads = build_loads_fmu(case, tmp_path / "loads.fmu", s)
@@ -303,7 +304,7 @@ def test_three_fmu_system_equals_python_components(nominal_fmu, tmp_path, case):
 
 
 def test_loads_fmu_for_another_step_is_refused(nominal_fmu, tmp_path):
-    from jointfmu.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
+    from jointfmu.cosim.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
 
     loads = build_loads_fmu("curb_strike", tmp_path / "l.fmu", SystemSettings(duration=0.01))
     ctrl = build_controller_fmu(tmp_path / "c.fmu")

@@ -11,9 +11,9 @@ physics core below.  The FMU, reports, sweeps and linear models are used from th
 from . import errors as _errors
 from . import params as _params
 from .errors import *  # noqa: F401,F403 - exactly errors.__all__
-from .integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator, kernel_info
-from .iwan import IwanJoint, backbone, backbone_tangent, dissipation_per_cycle, joint_constants
-from .modal import ModalModel
+from .physics.integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator, kernel_info
+from .physics.iwan import IwanJoint, backbone, backbone_tangent, dissipation_per_cycle, joint_constants
+from .physics.modal import ModalModel
 from .params import *  # noqa: F401,F403 - exactly params.__all__
 
 __version__ = "0.1.0"

@@ -1,4 +1,4 @@
 """``python -m jointfmu``: the command line (see :mod:`jointfmu.cli`)."""
-from .cli import run
+from .cli.main import run
 
 run()

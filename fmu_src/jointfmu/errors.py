@@ -7,7 +7,8 @@ message that says what is wrong and what is allowed.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Sequence
+import difflib
+from typing import Any, Iterable, Sequence
 
 __all__ = [
     "JointFmuError",
@@ -16,6 +17,7 @@ __all__ = [
     "InputError",
     "SimulationError",
     "BuildError",
+    "did_you_mean",
 ]
 
 
@@ -77,3 +79,17 @@ class SimulationError(JointFmuError, RuntimeError):
 
 class BuildError(JointFmuError, RuntimeError):
     """An FMU could not be built; nothing was left behind."""
+
+
+def did_you_mean(key: str, allowed: Iterable[str]) -> str:
+    """Hint naming the closest allowed keys (difflib ratio >= 0.5, case-insensitive, ties kept)."""
+    scored = []
+    for a in allowed:
+        r = difflib.SequenceMatcher(None, key.lower(), a.lower()).ratio()
+        if r >= 0.5:
+            scored.append((-r, a))
+    scored.sort()
+    if not scored:
+        return ""
+    best = [a for r, a in scored if r == scored[0][0]][:2]  # ties kept: "Ft" is as near "Fs" as "Kt"
+    return "did you mean " + " or ".join(repr(a) for a in best) + "?"

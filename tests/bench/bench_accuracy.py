@@ -3,7 +3,7 @@
 For a grid of joint parameters (chi, beta), regimes (micro-slip, macro-slip) and inputs
 (ring-down after a pulse, near-resonant sine, held random), the core's modal displacement error
 max|q - q_ref| / max|q_ref| is measured at several steps per period, with the reference
-(jointfmu.reference, rtol 1e-11) on the same held inputs.  The last line is one JSON object with
+(jointfmu.physics.reference, rtol 1e-11) on the same held inputs.  The last line is one JSON object with
 the worst error per steps-per-period setting, the evidence behind DEFAULT_STEPS_PER_PERIOD.
 
     python tests/bench/bench_accuracy.py [--quick]
@@ -16,9 +16,9 @@ import math
 
 import numpy as np
 
-from jointfmu import reference
-from jointfmu.integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator
-from jointfmu.iwan import joint_constants
+from jointfmu.physics import reference
+from jointfmu.physics.integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator
+from jointfmu.physics.iwan import joint_constants
 from jointfmu.params import parse_parameter_set
 
 

@@ -39,7 +39,7 @@ memory
     Resident set size over 10^7 internal steps of the core (10^6 in ``--quick``) and over many
     FMU steps.
 reference
-    Speedup over the SciPy reference integration (``jointfmu.reference.simulate``) at equal or
+    Speedup over the SciPy reference integration (``jointfmu.physics.reference.simulate``) at equal or
     better accuracy.  Accuracy is measured on the same forced 10-mode problem against the
     reference at rtol 1e-11 (the "truth"; the reference integrates branch by branch with events at
     every reversal, so its error follows its tolerance).  The reference is timed at a sweep of
@@ -121,7 +121,7 @@ def rss_mb() -> float:
 
 def excited(params, kernel="auto", **kw):
     """A simulator whose joints were just kicked well into micro-slip (ring-down follows)."""
-    from jointfmu.integrate import ModalSimulator
+    from jointfmu.physics.integrate import ModalSimulator
 
     sim = ModalSimulator(params, kernel=kernel, **kw)
     sim.set_inputs(modal_forces=[3.0 * m.joint.Fs for m in params.modes])
@@ -142,7 +142,7 @@ def bench_kernel(params, quick):
     """Our kernel and the bare joint of :func:`bench_bare_joint` measured alternately, many
     rounds, the fastest of each: both then see the same machine (it is shared and its speed
     drifts by 1.5x within minutes)."""
-    from jointfmu.integrate import kernel_info
+    from jointfmu.physics.integrate import kernel_info
 
     fast = excited(params)
     slow = excited(params, kernel="python")
@@ -165,7 +165,7 @@ def bench_kernel(params, quick):
 
 
 def bench_scaling(quick):
-    from jointfmu.integrate import ModalSimulator  # noqa: F401
+    from jointfmu.physics.integrate import ModalSimulator  # noqa: F401
 
     rep = 8 if quick else 15
     modes = {}
@@ -331,7 +331,7 @@ def bench_fmu(params, work: Path, quick):
     from pythonfmu.builder import FmuBuilder
 
     from jointfmu import save_parameter_set
-    from jointfmu.build import build_fmu
+    from jointfmu.fmu.build import build_fmu
 
     pfile = save_parameter_set(params, work / "speedbench.toml")
     t = time.perf_counter()
@@ -472,8 +472,8 @@ def bench_memory_core(params, quick):
 
 
 def bench_reference(params, quick):
-    from jointfmu import reference
-    from jointfmu.integrate import ModalSimulator
+    from jointfmu.physics import reference
+    from jointfmu.physics.integrate import ModalSimulator
 
     T = 0.1 if quick else 0.2
     dt = 1e-3

@@ -17,10 +17,10 @@ import tempfile
 import time
 from pathlib import Path
 
-from jointfmu.build import build_fmu
-from jointfmu.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
-from jointfmu.sweep import run_tasks, system_tasks
-from jointfmu.system import FmuStructure, SystemSettings, run_system
+from jointfmu.fmu.build import build_fmu
+from jointfmu.cosim.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
+from jointfmu.cosim.sweep import run_tasks, system_tasks
+from jointfmu.cosim.system import FmuStructure, SystemSettings, run_system
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "examples"
 

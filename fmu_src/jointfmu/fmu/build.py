@@ -54,9 +54,9 @@ from pathlib import Path
 from typing import Iterable, Mapping, Sequence
 from xml.etree import ElementTree as ET
 
-from ._files import atomic_write, publish
-from .errors import BuildError, InputError, JointFmuError, ParameterError, Problem
-from .params import (MODE_VALUE_NAMES, ParameterSet, _did_you_mean, check_mode_values,
+from ..fileio import atomic_write, publish
+from ..errors import BuildError, InputError, JointFmuError, ParameterError, Problem, did_you_mean
+from ..params import (MODE_VALUE_NAMES, ParameterSet, check_mode_values,
                      load_parameter_set)
 from .slave import BUILD_INFO_FILE, PARAMETER_FILE
 from .variables import PARAMETER_FIELDS, UNITS, variable_table
@@ -122,43 +122,51 @@ class BuildResult:
 
 
 # ---------------------------------------------------------------------------------- names
-#: Modules the FMU starts from; the bundle is their closure under package-relative imports.
-_BUNDLE_ROOTS = ("__init__", "slave")
-
-
-def _relative_imports(path: Path) -> set[str]:
-    """Names of the package modules a module imports relatively (at any depth of its code)."""
-    import ast
-
-    found = set()
-    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"), str(path))):
-        if isinstance(node, ast.ImportFrom) and node.level == 1:
-            if node.module:
-                found.add(node.module.split(".")[0])
-            else:
-                found.update(a.name for a in node.names)
-    return found
+#: What an FMU carries of jointfmu, relative to the package folder: the parameters, the physics and
+#: the slave with its variable table; nothing of the host side (build, command line, analysis,
+#: co-simulation, reports).  A fixed list, not an import closure, so that a host-side import added
+#: to a bundled module fails the build (:func:`_check_bundle`) instead of dragging the host in.
+BUNDLE = ("__init__.py", "errors.py", "fileio.py", "params", "physics", "fmu/__init__.py",
+          "fmu/slave.py", "fmu/variables.py")
 
 
 def _core_files() -> list[Path]:
-    """The package modules an FMU needs: the import closure of :data:`_BUNDLE_ROOTS`, so
-    host-side modules (command line, packaging, studies) stay out of the FMU."""
-    todo, seen = list(_BUNDLE_ROOTS), set()
-    while todo:
-        name = todo.pop()
-        path = _PACKAGE_DIR / f"{name}.py"
-        if name in seen or not path.is_file():
-            continue
-        seen.add(name)
-        todo.extend(_relative_imports(path) - seen)
-    return sorted(_PACKAGE_DIR / f"{n}.py" for n in seen)
+    """The package files an FMU carries (:data:`BUNDLE`), sorted."""
+    out = []
+    for item in BUNDLE:
+        path = _PACKAGE_DIR / item
+        out.extend(sorted(path.glob("*.py")) if path.is_dir() else [path])
+    return sorted(out)
+
+
+def _check_bundle(files: list[Path]) -> None:
+    """Every package-relative import of a bundled module resolves inside the bundle."""
+    import ast
+
+    have = {p.relative_to(_PACKAGE_DIR).with_suffix("").as_posix() for p in files}
+    have |= {h.rpartition("/")[0] for h in have if h.endswith("/__init__")}
+    for p in files:
+        rel = p.relative_to(_PACKAGE_DIR).with_suffix("").as_posix().split("/")
+        pkg = rel[:-1]
+        for node in ast.walk(ast.parse(p.read_text(encoding="utf-8"), str(p))):
+            if not (isinstance(node, ast.ImportFrom) and node.level):
+                continue
+            base = pkg[:len(pkg) - (node.level - 1)] if node.level > 1 else pkg
+            mod = base + (node.module.split(".") if node.module else [])
+            targets = (["/".join(mod + [a.name]) for a in node.names] if not node.module
+                       else ["/".join(mod)])
+            for tgt in targets:
+                tgt = tgt or "__init__"
+                if tgt not in have and tgt + "/__init__" not in have and "/".join(mod) not in have:
+                    raise BuildError(f"{p.relative_to(_PACKAGE_DIR)} imports {tgt.replace('/', '.')}, "
+                                     "which an FMU does not carry (fmu.build.BUNDLE)")
 
 
 def _source_hash() -> str:
     """SHA-256 over what decides an FMU's code: bundled modules, entry template, pythonfmu."""
     h = hashlib.sha256(_ENTRY_TEMPLATE.encode() + b"\0" + _pythonfmu_version().encode())
     for p in _core_files():
-        h.update(p.name.encode() + b"\0" + p.read_bytes() + b"\0")
+        h.update(p.relative_to(_PACKAGE_DIR).as_posix().encode() + b"\0" + p.read_bytes() + b"\0")
     if SHELL_SOURCE.is_file():
         h.update(SHELL_SOURCE.name.encode() + b"\0" + SHELL_SOURCE.read_bytes() + b"\0")
     return h.hexdigest()
@@ -306,7 +314,7 @@ def _load_core():
 
 
 _load_core()
-_slave = _importlib.import_module(_CORE + ".slave")
+_slave = _importlib.import_module(_CORE + ".fmu.slave")
 
 
 class {ident}(_slave.JointSlave):
@@ -366,8 +374,12 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
         src.mkdir()
         core_dir = src / core
         core_dir.mkdir()
-        for f in _core_files():
-            shutil.copy2(f, core_dir / f.name)
+        files = _core_files()
+        _check_bundle(files)
+        for f in files:
+            dest = core_dir / f.relative_to(_PACKAGE_DIR)
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copy2(f, dest)
         native, why = None, "pythonfmu's binary was asked for (binary='pythonfmu')"
         if choice != "pythonfmu":
             cdir = staging / "native"
@@ -815,7 +827,7 @@ def run_fmu(fmu_path: str | os.PathLike, times: Sequence[float],
     from fmpy import extract, read_model_description
     from fmpy.fmi2 import FMU2Slave
 
-    from .errors import SimulationError
+    from ..errors import SimulationError
 
     md = read_model_description(str(fmu_path))
     by_name = {v.name: v for v in md.modelVariables}
@@ -1041,7 +1053,7 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
     """
     from lxml import etree
 
-    from .integrate import DEFAULT_STEPS_PER_PERIOD, MIN_STEPS_PER_PERIOD
+    from ..physics.integrate import DEFAULT_STEPS_PER_PERIOD, MIN_STEPS_PER_PERIOD
 
     path = Path(path)
     src = str(path)
@@ -1101,7 +1113,7 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
             unit = (PARAMETER_FIELDS[field_name][0] if m else "1") if known else None
         if not known:
             problems.append(Problem(src, name, raw, allowed_text,
-                                    _did_you_mean(name, names_for_hint)))
+                                    did_you_mean(name, names_for_hint)))
             continue
         given_unit = typed[0].get("unit")
         if given_unit is not None and given_unit != unit:

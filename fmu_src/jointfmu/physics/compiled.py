@@ -47,7 +47,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import _kernel as _K
+from . import kernel as _K
 
 __all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "step_all", "refresh", "CACHE_FILE",
            "cache_dir_candidates", "bind"]

@@ -24,9 +24,11 @@ from typing import Sequence
 
 import numpy as np
 
-from . import characterize as C
-from .errors import InputError
-from .linear import CAUTION, _swap_into_place, equivalent_linear
+from ..analysis import characterize as C
+from ..analysis.runners import FmuRunner, get_runner
+from ..errors import InputError
+from ..analysis.linear import CAUTION, equivalent_linear
+from ..fileio import swap_into_place
 
 __all__ = ["write_report", "BuildSummary", "summarize_build", "FmuRunner", "get_runner",
            "DEFAULT_REPORT_DIR"]
@@ -67,7 +69,7 @@ class BuildSummary:
 
 
 def _load(p):
-    from .params import ParameterSet, load_parameter_set
+    from ..params import ParameterSet, load_parameter_set
 
     if isinstance(p, ParameterSet):
         return p
@@ -100,85 +102,12 @@ def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.0
     """
     ps = _load(params)
     curves = C.amplitude_curves(ps, lo=1e-3, hi=3.0, n=160)
-    runner = get_runner(runner)
+    runner = get_runner(runner, default="fmu")
     rd = C.ring_down(ps, runner, start=start, end=end, samples_per_period=samples_per_period)
     est = [C.identify_ringdown(rd, i) for i in range(ps.n_modes)]
     rd1 = C.ring_down(ps, runner, start=start, end=0.1, modes=[0], max_periods=60,
                       samples_per_period=samples_per_period)
     return BuildSummary(ps, curves, rd, rd1, est, _ref_points(ps))
-
-
-# ------------------------------------------------------------------------------------------------
-# ring-downs through the FMU
-# ------------------------------------------------------------------------------------------------
-@dataclass
-class FmuRunner:
-    """Ring-downs from the FMU of the parameter set, run with fmpy.
-
-    The FMU is built once per parameter set (by content hash) into ``build_dir`` (default a
-    temporary folder removed with the runner) with :func:`~.build.build_fmu`.
-
-    Parameters
-    ----------
-    build_dir : path-like, optional
-        Where FMUs are written (kept).  Default: a private temporary folder.
-    steps_per_period : float, optional
-        Value of the FMU parameter ``steps_per_period`` (default: the FMU's start value).
-    """
-
-    build_dir: str | os.PathLike | None = None
-    steps_per_period: float | None = None
-    name: str = "fmu"
-    _fmus: dict = field(default_factory=dict, repr=False)
-    _tmp: object = field(default=None, repr=False)
-
-    def fmu_for(self, params) -> Path:
-        """The FMU of ``params`` (built on first use) [path]."""
-        from .build import build_fmu
-        from .params import save_parameter_set
-
-        h = params.content_hash()
-        if h not in self._fmus:
-            if self.build_dir is None:
-                if self._tmp is None:
-                    self._tmp = tempfile.TemporaryDirectory(prefix="jointfmu_rd_")
-                folder = Path(self._tmp.name)
-            else:
-                folder = Path(self.build_dir)
-                folder.mkdir(parents=True, exist_ok=True)
-            toml = save_parameter_set(params, folder / f"{h[:12]}.toml")
-            self._fmus[h] = build_fmu(toml, folder / f"{h[:12]}.fmu").path
-        return self._fmus[h]
-
-    def __call__(self, params, impulses, dt, n_steps) -> C.RingDown:
-        from .build import run_fmu
-
-        imp, dt, n_steps = C.check_run_args(params, impulses, dt, n_steps)
-        fmu = self.fmu_for(params)
-        inputs = {f"mode[{i + 1}].force": [imp[i] / dt, 0.0] for i in range(params.n_modes)}
-        start = {"steps_per_period": float(self.steps_per_period)} if self.steps_per_period else None
-        header, rows = run_fmu(fmu, [0.0, dt], inputs, stop_time=n_steps * dt, step=dt,
-                               start_values=start)
-        r = np.asarray(rows, dtype=float)
-        col = {name: k for k, name in enumerate(header)}
-        q = r[:, [col[f"mode[{i + 1}].q"] for i in range(params.n_modes)]]
-        labels = tuple(p.label for p in params.output_points)
-        a = r[:, [col[f"point.{lab}.a"] for lab in labels]] if labels else np.zeros((len(r), 0))
-        return C.RingDown(r[:, 0], q, a, labels, imp, dt, "fmu")
-
-
-def get_runner(runner=None):
-    """A ring-down runner: ``None`` / ``"fmu"`` (default, :class:`FmuRunner`), ``"core"``
-    (:class:`~.characterize.CoreRunner`) or any callable with the
-    :class:`~.characterize.Runner` signature."""
-    if runner is None or runner == "fmu":
-        return FmuRunner()
-    if runner == "core":
-        return C.CoreRunner()
-    if isinstance(runner, str) or not callable(runner):
-        raise InputError(f"runner = {runner!r}: allowed are 'fmu' (default), 'core' or a callable "
-                         "runner(params, impulses, dt, n_steps) -> RingDown")
-    return runner
 
 
 # ------------------------------------------------------------------------------------------------
@@ -614,7 +543,7 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
     Written atomically: into a temporary folder beside ``out_dir``, which then replaces it; a
     failure leaves an existing report untouched.
     """
-    from . import __version__
+    from .. import __version__
 
     if isinstance(params_list, (str, os.PathLike)) or not hasattr(params_list, "__iter__"):
         params_list = [params_list]
@@ -624,7 +553,7 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
     target = Path(out_dir) if out_dir is not None else DEFAULT_REPORT_DIR
     if target.exists() and not target.is_dir():
         raise InputError(f"report folder {str(target)!r} exists and is not a folder")
-    run = get_runner(runner)
+    run = get_runner(runner, default="fmu")
     kw = {"end": 0.2, "samples_per_period": 24.0} if quick else {}
     summaries = [summarize_build(p, run, **kw) for p in sets]
     target.parent.mkdir(parents=True, exist_ok=True)
@@ -638,7 +567,7 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
         created = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
         (tmp / "index.html").write_text(_page(summaries, figs, created, __version__),
                                         encoding="utf-8")
-        _swap_into_place(tmp, target)
+        swap_into_place(tmp, target)
         tmp = None
     finally:
         if tmp is not None:

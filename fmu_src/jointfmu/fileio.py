@@ -8,11 +8,12 @@ was.
 from __future__ import annotations
 
 import os
+import shutil
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
 
-__all__ = ["atomic_write", "publish"]
+__all__ = ["atomic_write", "publish", "swap_into_place"]
 
 
 def publish(tmp: str | os.PathLike, dest: str | os.PathLike) -> None:
@@ -43,3 +44,25 @@ def atomic_write(path: str | os.PathLike, mode: str = "w", **open_kwargs):
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+
+
+def swap_into_place(tmp: Path, target: Path) -> None:
+    """Replace folder ``target`` by the complete folder ``tmp`` (same parent).
+
+    The old folder is first renamed aside, then ``tmp`` renamed into place, then the old one
+    removed; if the second rename fails the old folder is put back.  A reader sees either the old
+    or the new folder, never a half-written one (two renames; POSIX has no atomic folder swap).
+    """
+    old = None
+    if target.exists():
+        old = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=target.parent))
+        old.rmdir()
+        os.replace(target, old)
+    try:
+        os.replace(tmp, target)
+    except BaseException:
+        if old is not None:
+            os.replace(old, target)
+        raise
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)

@@ -16,7 +16,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Mapping, Optional
 
-from .integrate import DEFAULT_STEPS_PER_PERIOD
+from ..physics.integrate import DEFAULT_STEPS_PER_PERIOD
 
 __all__ = [
     "FmuVariable",

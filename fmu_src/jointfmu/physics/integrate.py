@@ -31,8 +31,9 @@ from operator import index as _integer
 import numpy as np
 from scipy.linalg import expm
 
-from . import _kernel as K
-from .errors import InputError
+from . import kernel as K
+from ..errors import InputError
+from .iwan import kernel_table
 from .modal import ModalModel
 
 __all__ = [
@@ -58,33 +59,6 @@ MAX_INPUT = 1e12
 #: 3: the joint state ``js`` also caches the branch root, the closure point and the power
 #: x^(chi+2) at the joint's position (_kernel.NJS = 20).
 _STATE_VERSION = 3
-
-
-def _joint_constants(model: ModalModel, merge_tol: float) -> np.ndarray:
-    """Per-mode constant table for the kernel, shape (N, NJC)."""
-    Fs, Kt, chi, beta = model.Fs, model.Kt, model.chi, model.beta
-    # Segalman 2005 parameter inversion (physics sheet sec. 1), a = (chi+1)/(chi+2)
-    a = (chi + 1.0) / (chi + 2.0)
-    phimax = Fs * (1.0 + beta) / (Kt * (beta + a))
-    R = Fs * (chi + 1.0) / (phimax ** (chi + 2.0) * (beta + a))
-    jc = np.zeros((model.n_modes, K.NJC))
-    jc[:, K.KT] = Kt
-    jc[:, K.FS] = Fs
-    jc[:, K.CHI] = chi
-    jc[:, K.PHIMAX] = phimax
-    jc[:, K.CF] = R / ((chi + 1.0) * (chi + 2.0))
-    jc[:, K.CD] = R / ((chi + 2.0) * (chi + 3.0))
-    jc[:, K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
-    jc[:, K.CK] = R / (chi + 1.0)
-    jc[:, K.E2] = chi + 2.0
-    jc[:, K.CKC] = -jc[:, K.CK] * (jc[:, K.E2] - 1.0)
-    pm = phimax ** (chi + 2.0)
-    jc[:, K.DVPM] = jc[:, K.CD] * phimax * pm
-    jc[:, K.UVPM] = 0.5 * Kt * phimax**2 - jc[:, K.CUV] * phimax * pm
-    jc[:, K.MERGE_TOL] = merge_tol * Fs
-    jc[:, K.KINF] = model.Kinf
-    jc[:, K.SPOINT] = beta * Kt / (1.0 + beta)
-    return jc
 
 
 def step_coefficients(omega0, zeta, h):
@@ -130,7 +104,7 @@ def _load_compiled():
     """Import :mod:`._compiled` once per process; returns ``(module or None, reason)``."""
     if not _COMPILED:
         try:
-            from . import _compiled  # optional fast path (Numba)
+            from . import compiled as _compiled  # optional fast path (Numba)
 
             _COMPILED.append((_compiled, f"compiled kernel loaded from {_compiled.CACHE_FILE}"))
         except Exception as exc:  # noqa: BLE001 - any failure falls back, and is reported
@@ -225,7 +199,8 @@ class ModalSimulator:
         # each mode's longest sub-step, from its own frequency
         self._h_mode = 2.0 * math.pi / (spp * self.model.omega0)
         self.h_max = float(self._h_mode.min())  # the highest mode's: the shortest of them
-        self._jc = _joint_constants(self.model, self.merge_tol)
+        m = self.model
+        self._jc = kernel_table(m.Fs, m.Kt, m.chi, m.beta, m.Kinf, self.merge_tol)
         self._cap = int(stack_capacity)
         self._q0 = self._vector(q0, "q0", n)
         self._qdot0 = self._vector(qdot0, "qdot0", n)

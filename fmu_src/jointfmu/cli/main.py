@@ -10,9 +10,9 @@ import argparse
 import sys
 from typing import Callable, Sequence
 
-from . import __version__
-from .errors import JointFmuError
-from .params import check_parameter_file, load_parameter_set
+from .. import __version__
+from ..errors import JointFmuError
+from ..params import check_parameter_file, load_parameter_set
 
 __all__ = ["main", "run"]
 
@@ -53,9 +53,9 @@ def _args_build(p: argparse.ArgumentParser) -> None:
 
 def _cmd_build(args: argparse.Namespace) -> int:
     """Build the FMI 2.0 co-simulation FMU of a parameter file."""
-    from .build import build_fmu
+    from ..fmu.build import build_fmu
 
-    from .integrate import kernel_info
+    from ..physics.integrate import kernel_info
 
     r = build_fmu(args.params, args.output, binary=args.binary)
     print(f"built {r.path} ({r.set_id}, sha256 {r.content_hash[:12]}, "
@@ -86,7 +86,7 @@ def _args_info(p: argparse.ArgumentParser) -> None:
 
 def _cmd_info(args: argparse.Namespace) -> int:
     """Print identity, modes, interface and host requirements of an FMU."""
-    from .build import format_fmu_info, read_fmu_info, read_parameter_values, with_parameter_values
+    from ..fmu.build import format_fmu_info, read_fmu_info, read_parameter_values, with_parameter_values
 
     info = read_fmu_info(args.fmu)
     if args.parameters:
@@ -115,7 +115,7 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     import tempfile
     from pathlib import Path
 
-    from .build import (build_fmu, read_fmu_info, read_input_csv, read_parameter_values, run_fmu,
+    from ..fmu.build import (build_fmu, read_fmu_info, read_input_csv, read_parameter_values, run_fmu,
                         write_csv_atomic)
 
     with tempfile.TemporaryDirectory(prefix="jointfmu_sim_") as tmp:
@@ -141,7 +141,7 @@ def _args_export_ssv(p: argparse.ArgumentParser) -> None:
 
 def _cmd_export_ssv(args: argparse.Namespace) -> int:
     """Write the fitted mode values as an SSP 1.0 parameter-value file."""
-    from .build import write_ssv
+    from ..fmu.build import write_ssv
 
     print(f"wrote {write_ssv(args.params, args.output)}")
     return 0
@@ -196,7 +196,7 @@ def _args_report(p: argparse.ArgumentParser) -> None:
 
 def _cmd_report(args: argparse.Namespace) -> int:
     """Write the characterization report of one or more builds."""
-    from .report import write_report
+    from ..report.characterization import write_report
 
     index = write_report(args.params, args.output, runner=args.runner, quick=args.quick)
     print(f"wrote {index}")
@@ -225,7 +225,7 @@ def _args_linearize(p: argparse.ArgumentParser) -> None:
 
 
 def _split_assignment(text: str, option: str, form: str) -> tuple[str, float]:
-    from .errors import InputError
+    from ..errors import InputError
 
     key, sep, value = text.partition("=")
     if not sep or not key.strip() or not value.strip():
@@ -244,8 +244,8 @@ def _cmd_linearize(args: argparse.Namespace) -> int:
 
     import numpy as np
 
-    from .errors import InputError
-    from .linear import amplitude_vector, equivalent_linear, modal_amplitudes_at_point
+    from ..errors import InputError
+    from ..analysis.linear import amplitude_vector, equivalent_linear, modal_amplitudes_at_point
 
     ps = load_parameter_set(args.params)
     if args.amplitude is None and not args.modal_amplitude:

@@ -13,11 +13,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import _kernel as K
+from ..params import JointParams  # validates the ranges with the project's messages
+from . import kernel as K
 
 __all__ = [
     "JointConstants",
     "joint_constants",
+    "kernel_table",
     "backbone",
     "backbone_tangent",
     "dissipation_per_cycle",
@@ -46,6 +48,44 @@ def joint_constants(Fs, Kt, chi, beta) -> JointConstants:
     R = Fs * (chi + 1.0) / (phimax ** (chi + 2.0) * (beta + a))
     S = beta * Kt / (1.0 + beta)
     return JointConstants(phimax, R, S)
+
+
+def kernel_table(Fs, Kt, chi, beta, Kinf, merge_tol: float) -> np.ndarray:
+    """The constant table the kernel reads per joint, shape (N, kernel.NJC).
+
+    Parameters
+    ----------
+    Fs, Kt, chi, beta, Kinf : array_like, shape (N,)
+        Joint parameters and the stiffness that stays in macro-slip (1/s^2 for a modal joint).
+    merge_tol : float
+        Reversal pairs whose force effect is below ``merge_tol * Fs`` are dropped.
+
+    The density constants come from :func:`joint_constants` (the one place Segalman's inversion
+    is written; :mod:`.reference` keeps its own on purpose, as an independent check); the rest
+    are the coefficients of the closed-form force, dissipation and stored energy of
+    physics sheet secs. 2-4.
+    """
+    Fs, Kt, chi, beta = (np.asarray(v, dtype=float) for v in (Fs, Kt, chi, beta))
+    c = joint_constants(Fs, Kt, chi, beta)
+    phimax, R = c.phimax, c.R
+    jc = np.zeros((Fs.shape[0], K.NJC))
+    jc[:, K.KT] = Kt
+    jc[:, K.FS] = Fs
+    jc[:, K.CHI] = chi
+    jc[:, K.PHIMAX] = phimax
+    jc[:, K.CF] = R / ((chi + 1.0) * (chi + 2.0))
+    jc[:, K.CD] = R / ((chi + 2.0) * (chi + 3.0))
+    jc[:, K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
+    jc[:, K.CK] = R / (chi + 1.0)
+    jc[:, K.E2] = chi + 2.0
+    jc[:, K.CKC] = -jc[:, K.CK] * (jc[:, K.E2] - 1.0)
+    pm = phimax ** (chi + 2.0)
+    jc[:, K.DVPM] = jc[:, K.CD] * phimax * pm
+    jc[:, K.UVPM] = 0.5 * Kt * phimax**2 - jc[:, K.CUV] * phimax * pm
+    jc[:, K.MERGE_TOL] = merge_tol * Fs
+    jc[:, K.KINF] = Kinf
+    jc[:, K.SPOINT] = c.S
+    return jc
 
 
 def backbone(u, Fs, Kt, chi, beta):
@@ -103,13 +143,9 @@ class IwanJoint:
     """
 
     def __init__(self, Fs, Kt, chi, beta, merge_tol=1e-10, capacity=4096, u0=0.0):
-        from .params import JointParams  # validates the ranges with the project's messages
 
         JointParams(Fs=float(Fs), Kt=float(Kt), chi=float(chi), beta=float(beta))
-        model = _OneJoint(np.array([Fs], float), np.array([Kt], float), np.array([chi], float), np.array([beta], float))
-        from .integrate import _joint_constants
-
-        self._jc = _joint_constants(model, merge_tol)
+        self._jc = kernel_table([Fs], [Kt], [chi], [beta], [0.0], merge_tol)
         self._js = np.zeros((1, K.NJS))
         self._stk = np.zeros((1, int(capacity), 3))
         self._bk = np.zeros_like(self._stk)
@@ -154,19 +190,3 @@ class IwanJoint:
     def reversals(self) -> np.ndarray:
         """Displacements of the reversal points held, oldest first."""
         return self._stk[0, : self.depth, 0].copy()
-
-
-@dataclass(frozen=True)
-class _OneJoint:
-    Fs: np.ndarray
-    Kt: np.ndarray
-    chi: np.ndarray
-    beta: np.ndarray
-
-    @property
-    def Kinf(self) -> np.ndarray:
-        return np.zeros(1)
-
-    @property
-    def n_modes(self) -> int:
-        return 1

@@ -34,8 +34,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ._files import atomic_write
-from .errors import BuildError, InputError
+from ..fileio import atomic_write
+from ..errors import BuildError, InputError
 
 __all__ = ["build_loads_fmu", "build_controller_fmu", "run_system_of_fmus"]
 
@@ -140,9 +140,9 @@ def _build(ident: str, source: str, dest: Path, project_files=()) -> Path:
     """Write the entry module and build it with pythonfmu into ``dest`` atomically."""
     from pythonfmu.builder import FmuBuilder
 
-    from .system import _pin_pythonfmu
+    from .system import pin_pythonfmu
 
-    _pin_pythonfmu()
+    pin_pythonfmu()
     dest = Path(dest)
     if dest.suffix.lower() != ".fmu":
         raise BuildError(f"output {str(dest)!r} must end in '.fmu'")
@@ -239,8 +239,8 @@ def run_system_of_fmus(tray_fmu, loads_fmu, controller_fmu, controller_on: bool,
     ``controller_on`` is False), the controller gets the tray's ``point.<p>.v``, then all three
     step.  Returns a :class:`.system.SystemRun` with the same history names.
     """
-    from .system import (FmuStructure, SystemRun, SystemSettings, _n_modes_of,
-                         _recorded_outputs)
+    from .system import (FmuStructure, SystemRun, SystemSettings, n_modes_of,
+                         recorded_outputs)
 
     s = settings or SystemSettings()
     info = json.loads(_read_resource(loads_fmu, "profile.json"))
@@ -254,7 +254,7 @@ def run_system_of_fmus(tray_fmu, loads_fmu, controller_fmu, controller_on: bool,
     point = s.controller.point
     with FmuStructure(tray_fmu, "tray") as tray, FmuStructure(loads_fmu, "loads") as loads, \
             FmuStructure(controller_fmu, "controller") as ctrl:
-        rec = _recorded_outputs(tray, s.tip, point, _n_modes_of(tray))
+        rec = recorded_outputs(tray, s.tip, point, n_modes_of(tray))
         tray_in = tray.vr(["base.acceleration", f"point.{point}.force"], "input")
         tray_out = tray.vr(rec, "output")
         sense = rec.index(f"point.{point}.v")

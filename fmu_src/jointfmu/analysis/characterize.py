@@ -36,8 +36,9 @@ from scipy import signal as _signal
 from scipy import special as _special
 from scipy.ndimage import uniform_filter1d
 
-from .errors import InputError, SimulationError
-from .iwan import backbone, backbone_tangent, dissipation_per_cycle, joint_constants
+from ..errors import InputError, SimulationError
+from ..physics.iwan import backbone, backbone_tangent, dissipation_per_cycle, joint_constants
+from .runners import CoreRunner, RingDown, Runner, check_run_args, get_runner
 
 __all__ = [
     "ModeCurves",
@@ -306,7 +307,7 @@ def hysteresis_loop(mode, A: float, n: int = 400, cycles: int = 2):
     dropped, so the result is the closed loop.  Returns ``(u, F)``, each shape (n*cycles + 1,),
     in m sqrt(kg) and N/sqrt(kg).
     """
-    from .iwan import IwanJoint
+    from ..physics.iwan import IwanJoint
 
     Fs, Kt, chi, beta = _joint(mode)
     j = IwanJoint(Fs, Kt, chi, beta)
@@ -326,7 +327,7 @@ def simulated_dissipation(mode, amplitudes, n: int = 64) -> np.ndarray:
     reversals (here exactly +-A) dissipates the same: ``n`` only needs to be even.  Shape like
     ``amplitudes``.
     """
-    from .iwan import IwanJoint
+    from ..physics.iwan import IwanJoint
 
     Fs, Kt, chi, beta = _joint(mode)
     out = []
@@ -337,144 +338,6 @@ def simulated_dissipation(mode, amplitudes, n: int = 64) -> np.ndarray:
         j.history(A * np.cos(np.linspace(0.0, _TWO_PI, n + 1)))
         out.append(j.dissipated - d0)
     return np.array(out).reshape(np.shape(amplitudes))
-
-
-# ------------------------------------------------------------------------------------------------
-# Ring-downs: runners
-# ------------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class RingDown:
-    """A simulated free decay of every mode after a short modal force pulse.
-
-    Convention (every runner keeps it): the modal force ``impulses[i] / dt`` acts on mode i over
-    the first step ``[0, dt)`` and nothing afterwards, so the motion is free from ``t = dt`` on and,
-    to first order, that of an impulse at ``t = dt/2`` (the symmetry centre for the odd extension
-    of the Hilbert analysis).
-
-    Attributes
-    ----------
-    t : ndarray, shape (n+1,)
-        Sample times ``k dt`` [s].
-    q : ndarray, shape (n+1, N)
-        Modal displacements [m sqrt(kg)].
-    point_a : ndarray, shape (n+1, n_out)
-        Absolute accelerations at the output points [m/s^2].  Samples 0 and 1 are taken while the
-        pulse acts (the FMU reports 0 at sample 0, before its first step).
-    output_labels : tuple of str
-        Output point labels (columns of ``point_a``).
-    impulses : ndarray, shape (N,)
-        Modal impulses [m sqrt(kg)/s].
-    dt : float
-        Sample (and communication) step [s].
-    source : str
-        What produced it, e.g. ``"core"`` or ``"fmu"``.
-    """
-
-    t: np.ndarray
-    q: np.ndarray
-    point_a: np.ndarray
-    output_labels: tuple
-    impulses: np.ndarray
-    dt: float
-    source: str
-
-    @property
-    def t_sym(self) -> float:
-        """Symmetry centre of the equivalent impulse, ``dt/2`` [s]."""
-        return 0.5 * self.dt
-
-
-class Runner(Protocol):
-    """Makes a :class:`RingDown`: ``runner(params, impulses, dt, n_steps) -> RingDown``."""
-
-    name: str
-
-    def __call__(self, params, impulses, dt: float, n_steps: int) -> RingDown: ...
-
-
-def check_run_args(params, impulses, dt, n_steps):
-    """Checked ``(impulses, dt, n_steps)`` of a runner call (for writers of runners).
-
-    Raises
-    ------
-    InputError
-        Wrong number of impulses, non-finite values, ``dt <= 0`` or ``n_steps < 1``.
-    """
-    imp = np.asarray(impulses, dtype=float).reshape(-1)
-    if imp.shape != (params.n_modes,) or not np.all(np.isfinite(imp)):
-        raise InputError(f"impulses: must be {params.n_modes} finite numbers (one per mode, "
-                         f"m*sqrt(kg)/s), got {impulses!r}")
-    if not (math.isfinite(dt) and dt > 0):
-        raise InputError(f"dt = {dt!r}: must be a finite step > 0 s")
-    if int(n_steps) < 1:
-        raise InputError(f"n_steps = {n_steps!r}: must be an integer >= 1")
-    return imp, float(dt), int(n_steps)
-
-
-@dataclass
-class CoreRunner:
-    """Ring-downs from the NumPy core (:class:`~.integrate.ModalSimulator`), no FMU.
-
-    Parameters
-    ----------
-    steps_per_period : float, optional
-        Internal sub-steps per period of each mode (default: the core's default, the same
-        as the FMU's ``steps_per_period`` start value).
-    """
-
-    steps_per_period: float | None = None
-    name: str = "core"
-
-    def __call__(self, params, impulses, dt, n_steps) -> RingDown:
-        from .integrate import DEFAULT_STEPS_PER_PERIOD, ModalSimulator
-
-        imp, dt, n_steps = check_run_args(params, impulses, dt, n_steps)
-        sim = ModalSimulator(params, steps_per_period=self.steps_per_period or DEFAULT_STEPS_PER_PERIOD)
-        q = np.empty((n_steps + 1, params.n_modes))
-        a = np.empty((n_steps + 1, len(params.output_points)))
-        sim.set_inputs(modal_forces=imp / dt)
-        q[0], a[0] = sim.q, sim.point_a
-        zero = np.zeros(params.n_modes)
-        for k in range(1, n_steps + 1):
-            ok, msg = sim.step(dt)
-            if not ok:
-                raise SimulationError(f"ring-down of {params.set_id}: {msg}")
-            q[k], a[k] = sim.q, sim.point_a  # read before the input changes, as fmpy does
-            if k == 1:
-                sim.set_inputs(modal_forces=zero)
-        return RingDown(np.arange(n_steps + 1) * dt, q, a,
-                        tuple(p.label for p in params.output_points), imp, dt, "core")
-
-
-def get_runner(runner=None) -> Runner:
-    """A runner from ``None`` / ``"core"`` (:class:`CoreRunner`) or any callable with the
-    :class:`Runner` signature.
-
-    The FMU runner, :class:`jointfmu.report.FmuRunner`, lives with the front end: this module
-    is part of the physics core, which never imports pythonfmu or fmpy.
-    """
-    if runner is None or runner == "core":
-        return CoreRunner()
-    if runner == "fmu":
-        raise InputError("runner = 'fmu': pass jointfmu.report.FmuRunner() (the physics core does "
-                         "not import fmpy), or use 'core'")
-    if isinstance(runner, str) or not callable(runner):
-        raise InputError(f"runner = {runner!r}: allowed are 'core' or a callable "
-                         "runner(params, impulses, dt, n_steps) -> RingDown such as "
-                         "jointfmu.report.FmuRunner()")
-    return runner
-
-
-def __getattr__(name):
-    # FmuRunner moved to .report (this module is physics core: no fmpy).  Older callers that
-    # import it from here still get it, with a warning naming the new place.
-    if name == "FmuRunner":
-        warnings.warn("jointfmu.characterize.FmuRunner moved to jointfmu.report.FmuRunner",
-                      DeprecationWarning, stacklevel=2)
-        from .report import FmuRunner
-
-        return FmuRunner
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def ring_down(params, runner=None, *, start: float = 1.0, end: float = 0.03,
@@ -504,7 +367,7 @@ def ring_down(params, runner=None, *, start: float = 1.0, end: float = 0.03,
         raise InputError(f"start = {start!r}, end = {end!r}: need 0 < end < start (relative to phimax)")
     if not samples_per_period >= 16:
         raise InputError(f"samples_per_period = {samples_per_period!r}: must be >= 16")
-    run = get_runner(runner)
+    run = get_runner(runner, default="core")
     sel = range(params.n_modes) if modes is None else list(modes)
     imp = np.zeros(params.n_modes)
     t_end = 0.0

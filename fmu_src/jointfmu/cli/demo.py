@@ -29,8 +29,8 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Sequence
 
-from ._files import atomic_write
-from .errors import InputError, ParameterError
+from ..fileio import atomic_write
+from ..errors import InputError, ParameterError
 
 __all__ = ["CAUTION", "EXAMPLE_FILES", "find_examples", "run_demo", "write_system_page",
            "add_cosim_args", "cmd_cosim", "add_sweep_args", "cmd_sweep", "add_demo_args",
@@ -86,7 +86,7 @@ def _atomic_figure(fig, path: Path) -> Path:
 
 
 def _settings(args) -> "object":
-    from .system import ControllerSettings, SystemSettings
+    from ..cosim.system import ControllerSettings, SystemSettings
 
     c = ControllerSettings(gain=args.gain, tau=args.tau, force_limit=args.force_limit)
     return SystemSettings(step=args.step, duration=args.duration, seed=args.seed,
@@ -101,7 +101,7 @@ def _controller_modes(text: str) -> tuple[bool, ...]:
 
 
 def _cases(names: Sequence[str] | None) -> list[str]:
-    from .system import LOAD_CASES
+    from ..cosim.system import LOAD_CASES
 
     if not names:
         return list(LOAD_CASES)
@@ -113,7 +113,7 @@ def _cases(names: Sequence[str] | None) -> list[str]:
 
 
 def _build_all(param_files: Sequence[Path], fmu_dir: Path) -> list[tuple[Path, Path]]:
-    from .build import build_fmu
+    from ..fmu.build import build_fmu
 
     out = []
     for p in param_files:
@@ -124,8 +124,8 @@ def _build_all(param_files: Sequence[Path], fmu_dir: Path) -> list[tuple[Path, P
 
 
 def _sweep_tasks(builds, cases, controller, settings, history_dir, quick: bool):
-    from .sweep import system_tasks
-    from .system import LOAD_CASES
+    from ..cosim.sweep import system_tasks
+    from ..cosim.system import LOAD_CASES
 
     if not quick or settings.duration is not None:
         return system_tasks(builds, cases, controller, settings, history_dir)
@@ -138,7 +138,7 @@ def _sweep_tasks(builds, cases, controller, settings, history_dir, quick: bool):
 
 # ----------------------------------------------------------------------------- cosim CLI
 def _add_system_options(p: argparse.ArgumentParser) -> None:
-    from .system import ControllerSettings, SystemSettings
+    from ..cosim.system import ControllerSettings, SystemSettings
 
     d, c = SystemSettings(), ControllerSettings()
     g = p.add_argument_group("system")
@@ -162,7 +162,7 @@ def _add_system_options(p: argparse.ArgumentParser) -> None:
 
 def add_cosim_args(p: argparse.ArgumentParser) -> None:
     """Arguments of ``jointfmu cosim``."""
-    from .system import LOAD_CASES
+    from ..cosim.system import LOAD_CASES
 
     p.add_argument("model", metavar="FMU|PARAMS", help="an FMU, or a parameter file to build first")
     p.add_argument("--case", required=True, choices=list(LOAD_CASES), help="load case")
@@ -177,9 +177,9 @@ def cmd_cosim(args) -> int:
     """One system run: loads model -> tray FMU <-> controller; histories and a summary."""
     import pandas as pd
 
-    from .build import build_fmu
-    from .sweep import write_table
-    from .system import run_case
+    from ..fmu.build import build_fmu
+    from ..cosim.sweep import write_table
+    from ..cosim.runs import run_case
 
     out = Path(args.output)
     if out.suffix.lower() not in (".parquet", ".csv"):
@@ -211,7 +211,7 @@ def cmd_cosim(args) -> int:
 # ----------------------------------------------------------------------------- sweep CLI
 def add_sweep_args(p: argparse.ArgumentParser) -> None:
     """Arguments of ``jointfmu sweep``."""
-    from .system import LOAD_CASES
+    from ..cosim.system import LOAD_CASES
 
     p.add_argument("params", nargs="+", metavar="PARAMS", help="parameter files (one per build)")
     p.add_argument("--cases", nargs="+", metavar="CASE", default=None,
@@ -232,7 +232,7 @@ def add_sweep_args(p: argparse.ArgumentParser) -> None:
 
 def cmd_sweep(args) -> int:
     """Builds x load cases x controller through the system, on Dask; rerun skips done rows."""
-    from .sweep import raise_failures, run_tasks
+    from ..cosim.sweep import raise_failures, run_tasks
 
     files = [Path(p) for p in args.params]
     # every input checked before anything is written
@@ -260,7 +260,7 @@ def _check_scheduler(address) -> None:
 
 
 def _check_files(files: Sequence[Path]) -> None:
-    from .params import check_parameter_file
+    from ..params import check_parameter_file
 
     problems = []
     for f in files:
@@ -316,7 +316,7 @@ def write_system_page(table, out_dir, history_dir=None, title="System co-simulat
     import numpy as np
     import pandas as pd
 
-    from .system import G0, LOAD_CASES, ControllerSettings
+    from ..cosim.system import G0, LOAD_CASES, ControllerSettings
 
     out = Path(out_dir)
     df = table.sort_values(["build", "case", "controller"]).reset_index(drop=True)
@@ -507,8 +507,8 @@ Full table: <code>results.parquet</code>; summary: <code>{e(paths['summary_csv']
 def _three_fmu_check(build, table, settings, quick: bool, fmu_dir: Path) -> dict:
     """Build a loads FMU per load case and the controller FMU; rerun one sweep case (first
     build, curb_strike, controller on) as a system of three FMUs and compare with the sweep."""
-    from .components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
-    from .system import LOAD_CASES, summarize
+    from ..cosim.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
+    from ..cosim.system import LOAD_CASES, summarize
 
     paths = {}
     per_case = {}
@@ -524,7 +524,7 @@ def _three_fmu_check(build, table, settings, quick: bool, fmu_dir: Path) -> dict
     run = run_system_of_fmus(tray, paths[f"fmu:loads_{case}"], paths["fmu:active_damper"], True,
                              sc, case=case)
     got = summarize(run, sc.tip, sc.controller.point, sc.controller.force_limit)
-    from .params import load_parameter_set
+    from ..params import load_parameter_set
 
     b = load_parameter_set(params_path).build
     row = table[(table["build"] == b) & (table["case"] == case) & (table["controller"])]
@@ -576,7 +576,7 @@ def export_linear(params, amplitudes, out_dir, case: str) -> tuple[Path, str]:
     (Path, str)
         The folder and the definition used.
     """
-    from .linear import equivalent_linear
+    from ..analysis.linear import equivalent_linear
 
     lm = equivalent_linear(params, amplitudes)
     lm.info["origin"] = (f"jointfmu demo: sine-equivalent modal amplitudes (sqrt(2) x RMS) of "
@@ -613,8 +613,8 @@ def cmd_demo(args) -> int:
 def _report_step(param_sets, files, out_dir: Path, quick: bool, client, progress: bool = True):
     """Step 3: the characterization report (:func:`.report.write_report`); returns the page
     and the runner that served the ring-downs."""
-    from . import report as _report
-    from .sweep import CachedRunner, prefetch_ring_downs
+    from ..report import characterization as _report
+    from ..cosim.sweep import CachedRunner, prefetch_ring_downs
 
     # the ring-downs run in parallel on the cluster, the report is then drawn here from them
     cache = prefetch_ring_downs([str(f) for f in files], client, quick=quick,
@@ -651,9 +651,9 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         (the printable summary), ``linear`` (build -> case and amplitudes), ``ran`` and
         ``skipped`` (sweep keys run now and found done).
     """
-    from .params import load_parameter_set
-    from .sweep import dask_client, raise_failures, run_tasks
-    from .system import SystemSettings
+    from ..params import load_parameter_set
+    from ..cosim.sweep import dask_client, raise_failures, run_tasks
+    from ..cosim.system import SystemSettings
 
     out = Path(out_dir)
     t_all = time.perf_counter()

@@ -34,9 +34,9 @@ from pythonfmu import Fmi2Slave
 from pythonfmu.enums import Fmi2Causality, Fmi2Initial, Fmi2Status, Fmi2Variability
 from pythonfmu.variables import Real
 
-from .errors import InputError, JointFmuError
-from .integrate import MAX_INPUT
-from .params import load_parameter_set
+from ..errors import InputError, JointFmuError
+from ..physics.integrate import MAX_INPUT
+from ..params import load_parameter_set
 from .variables import variable_table
 
 __all__ = ["JointSlave", "PARAMETER_FILE", "BUILD_INFO_FILE"]
@@ -274,7 +274,7 @@ class JointSlave(Fmi2Slave):
         self._pending = set(self._input_vrs)   # a new simulator starts from zero inputs
         try:
             params = self._effective_params()
-            from .integrate import ModalSimulator  # its range check names steps_per_period
+            from ..physics.integrate import ModalSimulator  # its range check names steps_per_period
             sim = ModalSimulator(params, steps_per_period=self._values[self._steps_vr])
             self._in_pos = {vr: sim.input_index(_INPUT_NAMES[v.kind], v.index)
                             for vr, v in enumerate(self._table) if v.is_input}

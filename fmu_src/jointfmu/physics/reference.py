@@ -30,7 +30,7 @@ from typing import Any
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from .errors import InputError, ParameterError, Problem, SimulationError
+from ..errors import InputError, ParameterError, Problem, SimulationError
 
 __all__ = ["simulate_mode", "simulate", "iwan_constants"]
 

@@ -48,8 +48,8 @@ from typing import Callable, Mapping, Sequence
 
 import numpy as np
 
-from ._files import atomic_write
-from .errors import InputError, SimulationError
+from ..fileio import atomic_write
+from ..errors import InputError, SimulationError
 
 __all__ = [
     "G0",
@@ -299,7 +299,7 @@ def _cleanup_extracted() -> None:
 atexit.register(_cleanup_extracted)
 
 
-def _pin_pythonfmu() -> None:
+def pin_pythonfmu() -> None:
     """Import pythonfmu from its installed location before any FMU is loaded in this process.
 
     pythonfmu's FMU binary puts the FMU's ``resources`` folder first on ``sys.path``, and that
@@ -369,7 +369,7 @@ class FmuStructure:
         cb.allocateMemory = fmi2CallbackAllocateMemoryTYPE(calloc)
         cb.freeMemory = fmi2CallbackFreeMemoryTYPE(free)
         self._cb = cb          # keep the ctypes callbacks alive as long as the instance
-        _pin_pythonfmu()
+        pin_pythonfmu()
         self._dir = _extract_once(path)
         self._fmu = FMU2Slave(guid=md.guid, unzipDirectory=self._dir,
                               modelIdentifier=md.coSimulation.modelIdentifier,
@@ -568,7 +568,7 @@ class SystemRun:
     wall_time: float
 
 
-def _recorded_outputs(structure, tip: str, point: str, n_modes: int) -> list[str]:
+def recorded_outputs(structure, tip: str, point: str, n_modes: int) -> list[str]:
     names = [f"point.{tip}.a", f"point.{tip}.v", f"point.{point}.v", f"point.{point}.a",
              "base.force", "energy.input", "energy.joint", "energy.viscous"]
     names += [f"mode[{i}].q" for i in range(1, n_modes + 1)]
@@ -580,7 +580,7 @@ def _recorded_outputs(structure, tip: str, point: str, n_modes: int) -> list[str
     return out
 
 
-def _n_modes_of(structure) -> int:
+def n_modes_of(structure) -> int:
     k = 0
     while f"mode[{k + 1}].q" in structure.outputs:
         k += 1
@@ -623,7 +623,7 @@ def run_system(structure, case: str, controller_on: bool, settings: SystemSettin
             raise InputError(f"base_acc: expected shape {a.shape}, got {base_acc.shape}")
         a = base_acc
     in_vr = structure.vr(["base.acceleration", f"point.{ctrl_point}.force"], "input")
-    rec = _recorded_outputs(structure, s.tip, ctrl_point, _n_modes_of(structure))
+    rec = recorded_outputs(structure, s.tip, ctrl_point, n_modes_of(structure))
     out_vr = structure.vr(rec, "output")
     sense_idx = rec.index(f"point.{ctrl_point}.v")
     damper = ActiveDamper(s.controller)
@@ -668,7 +668,7 @@ def run_structure_direct(structure, times: np.ndarray, base_acc: np.ndarray,
     return res
 
 
-def _rms(x: np.ndarray) -> float:
+def rms(x: np.ndarray) -> float:
     return float(np.sqrt(np.mean(np.square(x)))) if x.size else 0.0
 
 
@@ -689,13 +689,13 @@ def summarize(run: SystemRun, tip: str = "tip", point: str = "psu_foot",
     a_tip = h[f"point.{tip}.a"]
     out = {
         "tip_acc_peak": float(np.max(np.abs(a_tip))),
-        "tip_acc_rms": _rms(a_tip),
+        "tip_acc_rms": rms(a_tip),
         "base_force_peak": float(np.max(np.abs(h["base.force"]))),
         "energy_input": float(h["energy.input"][-1]),
         "energy_joint": float(h["energy.joint"][-1]),
         "energy_viscous": float(h["energy.viscous"][-1]),
         "actuator_force_peak": float(np.max(np.abs(h["actuator.force"]))),
-        "base_acc_rms": _rms(h["base.acceleration"]),
+        "base_acc_rms": rms(h["base.acceleration"]),
     }
     out["tip_acc_peak_g"] = out["tip_acc_peak"] / G0
     out["tip_acc_rms_g"] = out["tip_acc_rms"] / G0
@@ -707,8 +707,8 @@ def summarize(run: SystemRun, tip: str = "tip", point: str = "psu_foot",
     i = 1
     while f"mode[{i}].q" in h:
         q = h[f"mode[{i}].q"]
-        out[f"q_rms_{i}"] = _rms(q)
-        out[f"q_amp_{i}"] = math.sqrt(2.0) * _rms(q)
+        out[f"q_rms_{i}"] = rms(q)
+        out[f"q_amp_{i}"] = math.sqrt(2.0) * rms(q)
         i += 1
     out["wall_time"] = run.wall_time
     return out
@@ -738,7 +738,7 @@ def equivalent_linear_structure(params, amplitudes) -> tuple[LinearStructure, st
     (LinearStructure, str)
         The component and the name of the definition used.
     """
-    from .linear import available_inputs, available_outputs, equivalent_linear
+    from ..analysis.linear import available_inputs, available_outputs, equivalent_linear
 
     ins = [n for n in available_inputs(params) if not n.startswith("mode[")]
     lm = equivalent_linear(params, np.asarray(amplitudes, float), inputs=ins,
@@ -759,64 +759,3 @@ def settings_from_dict(d: Mapping) -> SystemSettings:
                          f"{sorted(allowed | {'controller'})}")
     c = ControllerSettings(**ctrl) if isinstance(ctrl, Mapping) else ControllerSettings()
     return SystemSettings(controller=c, **d)
-
-
-def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=None,
-             history_path=None, linear: bool = True) -> dict:
-    """One system run as a self-contained task (what a sweep worker calls).
-
-    Loads the parameter set and the FMU itself, runs :func:`run_system`, writes the time
-    histories (Parquet) when ``history_path`` is given, and, with ``linear``, runs the
-    equivalent-linear structure at the run's own sine-equivalent modal amplitudes
-    (``sqrt(2)`` times the RMS of each ``mode[i].q``) through the same loop and reports how far
-    its tip acceleration is from the nonlinear one.
-
-    Returns
-    -------
-    dict of scalars
-        :func:`summarize` plus identity (``build``, ``set_id``, ``params_hash``, ``case``,
-        ``controller``), settings and the ``lin_*`` columns.
-    """
-    from .params import load_parameter_set
-
-    s = settings if isinstance(settings, SystemSettings) else settings_from_dict(settings or {})
-    if params_path is None:  # the parameter set bundled in the FMU
-        from .build import read_fmu_info
-
-        ps = read_fmu_info(fmu_path)["params"]
-    else:
-        ps = load_parameter_set(params_path)
-    if s.components == "fmu":
-        from .components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
-
-        with tempfile.TemporaryDirectory(prefix="jointfmu_sys_") as d:
-            loads = build_loads_fmu(case, Path(d) / "loads.fmu", s)
-            ctrl = build_controller_fmu(Path(d) / "controller.fmu", s.controller)
-            run = run_system_of_fmus(fmu_path, loads, ctrl, controller_on, s, case=case)
-    else:
-        with FmuStructure(fmu_path, instance_name=f"{case}") as st:
-            run = run_system(st, case, controller_on, s)
-    row = {"build": ps.build, "set_id": ps.set_id, "params_hash": ps.short_hash(), "case": case,
-           "controller": bool(controller_on), "step": s.step,
-           "duration": s.resolved_duration(case), "seed": s.seed, "level": s.level,
-           "components": s.components}
-    row.update(summarize(run, s.tip, s.controller.point, s.controller.force_limit))
-    if history_path is not None:
-        write_history(run, history_path)
-        row["history"] = str(Path(history_path).name)
-    if linear:
-        amps = [row[f"q_amp_{i}"] for i in range(1, ps.n_modes + 1)]
-        lin, how = equivalent_linear_structure(ps, amps)
-        lrun = run_system(lin, case, controller_on, s)
-        a_nl = run.history[f"point.{s.tip}.a"]
-        a_li = lrun.history[f"point.{s.tip}.a"]
-        rms_nl = _rms(a_nl)
-        row["lin_model"] = how
-        row["lin_tip_acc_rms"] = _rms(a_li)
-        row["lin_tip_acc_peak"] = float(np.max(np.abs(a_li)))
-        row["lin_rms_diff"] = row["lin_tip_acc_rms"] / rms_nl - 1.0 if rms_nl > 0 else 0.0
-        row["lin_peak_diff"] = (row["lin_tip_acc_peak"] / row["tip_acc_peak"] - 1.0
-                                if row["tip_acc_peak"] > 0 else 0.0)
-        row["lin_waveform_err"] = _rms(a_li - a_nl) / rms_nl if rms_nl > 0 else 0.0
-        row["lin_base_force_peak"] = float(np.max(np.abs(lrun.history["base.force"])))
-    return row

@@ -35,8 +35,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Mapping, Sequence
 
-from ._files import atomic_write
-from .errors import InputError, SimulationError
+from ..fileio import atomic_write
+from ..errors import InputError, SimulationError
 
 __all__ = [
     "Task",
@@ -177,7 +177,7 @@ def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS,
     if not (isinstance(n_workers, int) and n_workers >= 1):
         raise InputError(f"workers = {n_workers!r}: allowed is an integer >= 1")
     # Worker processes are spawned with this process's sys.path; leave out the resources
-    # folders that loading FMUs put there (see system._pin_pythonfmu), else a worker could
+    # folders that loading FMUs put there (see system.pin_pythonfmu), else a worker could
     # import pythonfmu from an FMU's copy and then fail to build FMUs.
     saved = list(sys.path)
     sys.path[:] = [p for p in sys.path if not _is_fmu_resources(p)]
@@ -350,8 +350,9 @@ def system_tasks(builds: Sequence[tuple[Any, Any]], cases: Iterable[str],
     list of Task
         Keys ``<params hash12>:<case>:ctrl-<on|off>:<settings digest>``.
     """
-    from .params import load_parameter_set
-    from .system import LOAD_CASES, SystemSettings, run_case
+    from ..params import load_parameter_set
+    from .runs import run_case
+    from .system import LOAD_CASES, SystemSettings
 
     s = settings or SystemSettings()
     cases = list(cases)
@@ -384,7 +385,7 @@ def _ring_down_key(params, impulses, dt, n_steps) -> tuple:
 
 def _fmu_runner():
     """The characterization report's FMU ring-down runner."""
-    from .report import FmuRunner
+    from ..analysis.runners import FmuRunner
 
     return FmuRunner()
 
@@ -446,10 +447,10 @@ def characterize_task(params_path, quick: bool = False) -> list:
     Runs :func:`.report.summarize_build` with the FMU runner and returns every ring-down it
     made as ``(key, RingDown)`` pairs.
     """
-    from .report import summarize_build
-    from .system import _pin_pythonfmu
+    from ..report.characterization import summarize_build
+    from .system import pin_pythonfmu
 
-    _pin_pythonfmu()    # before any FMU of an earlier task could shadow it
+    pin_pythonfmu()    # before any FMU of an earlier task could shadow it
     rec = _RecordingRunner(_fmu_runner())
     summarize_build(params_path, rec, **_report_kwargs(quick))
     return rec.records

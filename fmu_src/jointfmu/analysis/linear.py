@@ -50,8 +50,9 @@ from typing import Mapping, Sequence
 import numpy as np
 from scipy.optimize import brentq
 
-from .errors import InputError
-from .iwan import dissipation_per_cycle, joint_constants
+from ..errors import InputError
+from ..fileio import swap_into_place
+from ..physics.iwan import dissipation_per_cycle, joint_constants
 
 __all__ = [
     "LinearModel",
@@ -377,7 +378,7 @@ class LinearModel:
                 for r, vals in zip(rows[name], getattr(self, name)):
                     w.writerow([r] + [repr(float(v)) for v in vals])
                 (tmp / f"{name}.csv").write_text(buf.getvalue(), encoding="utf-8")
-            _swap_into_place(tmp, target)
+            swap_into_place(tmp, target)
             tmp = None
         finally:
             if tmp is not None:
@@ -408,28 +409,6 @@ class LinearModel:
                    modal_amplitude=amp, frequency=np.array([m["frequency_hz"] for m in modes]),
                    zeta=np.array([m["zeta"] for m in modes]), phimax=pm,
                    set_id=meta["parameter_set"], content_hash=meta["content_hash"], info=info)
-
-
-def _swap_into_place(tmp: Path, target: Path) -> None:
-    """Replace folder ``target`` by the complete folder ``tmp`` (same parent).
-
-    The old folder is first renamed aside, then ``tmp`` renamed into place, then the old one
-    removed; if the second rename fails the old folder is put back.  A reader sees either the old
-    or the new folder, never a half-written one (two renames; POSIX has no atomic folder swap).
-    """
-    old = None
-    if target.exists():
-        old = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=target.parent))
-        old.rmdir()
-        os.replace(target, old)
-    try:
-        os.replace(tmp, target)
-    except BaseException:
-        if old is not None:
-            os.replace(old, target)
-        raise
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
 
 
 def _ro(a):
@@ -465,8 +444,8 @@ def equivalent_linear(params, amplitudes, inputs: Sequence[str] | None = None,
     InputError
         Bad amplitude or an unknown input/output name (the message lists the allowed ones).
     """
-    from . import __version__
-    from .modal import ModalModel
+    from .. import __version__
+    from ..physics.modal import ModalModel
 
     amp = amplitude_vector(params, amplitudes)
     ins = _default_inputs(params) if inputs is None else tuple(inputs)

@@ -21,7 +21,6 @@ read from) is not.  Comments, key order and table order in the file do not chang
 """
 from __future__ import annotations
 
-import difflib
 import hashlib
 import json
 import math
@@ -41,8 +40,8 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
     except ModuleNotFoundError:
         _toml = None  # type: ignore[assignment]
 
-from ._files import atomic_write
-from .errors import ParameterError, Problem
+from ..fileio import atomic_write
+from ..errors import ParameterError, Problem, did_you_mean
 
 __all__ = [
     "FORMAT",
@@ -135,20 +134,6 @@ def _number(x: Any, file: str, fld: str, unit: str, problems: list[Problem]) -> 
     return v + 0.0  # folds -0.0 to 0.0 so equal sets hash equal
 
 
-def _did_you_mean(key: str, allowed: Iterable[str]) -> str:
-    """Hint naming the closest allowed keys (difflib ratio >= 0.5, case-insensitive, ties kept)."""
-    scored = []
-    for a in allowed:
-        r = difflib.SequenceMatcher(None, key.lower(), a.lower()).ratio()
-        if r >= 0.5:
-            scored.append((-r, a))
-    scored.sort()
-    if not scored:
-        return ""
-    best = [a for r, a in scored if r == scored[0][0]][:2]  # ties kept: "Ft" is as near "Fs" as "Kt"
-    return "did you mean " + " or ".join(repr(a) for a in best) + "?"
-
-
 def _check_keys(table: Mapping[str, Any], allowed: tuple[str, ...], where: str, prefix: str,
                 file: str, problems: list[Problem]) -> None:
     for key in table:
@@ -156,7 +141,7 @@ def _check_keys(table: Mapping[str, Any], allowed: tuple[str, ...], where: str, 
             problems.append(Problem(
                 file, f"{prefix}{key}", table[key],
                 f"unknown key in {where}; allowed keys: {', '.join(allowed)}",
-                _did_you_mean(key, allowed)))
+                did_you_mean(key, allowed)))
 
 
 def _text(x: Any, file: str, fld: str, problems: list[Problem], *, required_nonempty: bool = False
@@ -444,7 +429,7 @@ def _check_point_values(role: Any, direction: Any, shape: Any, base_factor: Any,
     if role not in ROLES:
         problems.append(Problem(file, pre + "role", role,
                                 "must be one of " + ", ".join(repr(r) for r in ROLES),
-                                _did_you_mean(role, ROLES) if isinstance(role, str) else ""))
+                                did_you_mean(role, ROLES) if isinstance(role, str) else ""))
     _text(direction, file, pre + "direction", problems, required_nonempty=True)
     out: tuple[float, ...] | None = None
     if isinstance(shape, (list, tuple)):
@@ -759,7 +744,7 @@ class ParameterSet:
             if name not in MODE_VALUE_NAMES:
                 problems.append(Problem(source, f"mode[{i}].{name}", value,
                                         "unknown mode value; allowed: " + ", ".join(MODE_VALUE_NAMES),
-                                        _did_you_mean(name, MODE_VALUE_NAMES)))
+                                        did_you_mean(name, MODE_VALUE_NAMES)))
                 continue
             per_mode.setdefault(i, {})[name] = value
         new_values: dict[int, dict[str, Any]] = {}

@@ -1,0 +1,1 @@
+"""HTML pages with figures: the characterization report (:mod:`.characterization`)."""
