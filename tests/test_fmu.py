@@ -26,7 +26,8 @@ from fmpy.fmi2 import (FMU2Slave, fmi2CallbackAllocateMemoryTYPE,  # noqa: E402
 from fmpy.validation import validate_fmu  # noqa: E402
 
 from jointfmu.physics import reference  # noqa: E402
-from jointfmu.fmu.build import build_fmu, read_fmu_info  # noqa: E402
+from jointfmu.fmu.build import build_fmu
+from jointfmu.fmu.info import read_fmu_info
 from jointfmu.params import check_mode_values, load_parameter_set  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
@@ -529,11 +530,11 @@ def test_build_forgets_its_staging_modules(fmus):
 
 def test_new_source_gives_new_names(psets, monkeypatch):
     """Two versions of jointfmu must not share module names in one process either."""
-    from jointfmu.fmu import build as jbuild
+    from jointfmu.fmu import bundle
     ps = psets["tray_nominal"]
-    before = jbuild.fmu_names(ps)
-    monkeypatch.setattr(jbuild, "_source_hash", lambda: "0" * 64)
-    after = jbuild.fmu_names(ps)
+    before = bundle.fmu_names(ps)
+    monkeypatch.setattr(bundle, "source_hash", lambda: "0" * 64)
+    after = bundle.fmu_names(ps)
     assert before[0] != after[0] and before[1] != after[1]
     assert after[0].startswith("Jfmu_avionics_tray_") and after[1].startswith("jfmu_core_")
 

@@ -22,7 +22,9 @@ import pytest
 pytest.importorskip("fmpy")
 from fmpy.validation import validate_fmu  # noqa: E402
 
-from jointfmu.fmu.build import _compile_shell, build_fmu, format_fmu_info, read_fmu_info  # noqa: E402
+from jointfmu.fmu.build import build_fmu
+from jointfmu.fmu.native import compile_shell
+from jointfmu.fmu.info import format_fmu_info, read_fmu_info
 from jointfmu.errors import BuildError  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
 
@@ -36,7 +38,7 @@ def _can_compile() -> bool:
     import tempfile
 
     with tempfile.TemporaryDirectory() as d:
-        return _compile_shell(Path(d), "probe")[0] is not None
+        return compile_shell(Path(d), "probe")[0] is not None
 
 
 needs_cc = pytest.mark.skipif(not _can_compile(), reason="the native shell cannot be compiled here")

@@ -23,7 +23,8 @@ pytest.importorskip("fmpy")
 pytest.importorskip("pythonfmu")
 
 from jointfmu.physics import reference  # noqa: E402
-from jointfmu.fmu.build import build_fmu, parameter_values_ssv, read_parameter_values  # noqa: E402
+from jointfmu.fmu.build import build_fmu
+from jointfmu.fmu.ssv import parameter_values_ssv, read_parameter_values
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import InputError, ParameterError  # noqa: E402
 from jointfmu.params import check_parameter_file, load_parameter_set  # noqa: E402

@@ -26,7 +26,8 @@ import pytest
 pytest.importorskip("fmpy")
 pytest.importorskip("pythonfmu")
 
-from jointfmu.fmu.build import build_fmu, run_fmu  # noqa: E402
+from jointfmu.fmu.build import build_fmu
+from jointfmu.fmu.run import run_fmu
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.params import load_parameter_set, save_parameter_set  # noqa: E402
 from jointfmu.cosim.system import (G0, LOAD_CASES, ActiveDamper, ControllerSettings,  # noqa: E402

@@ -169,7 +169,7 @@ class FmuRunner:
         return self._fmus[h]
 
     def __call__(self, params, impulses, dt, n_steps) -> RingDown:
-        from ..fmu.build import run_fmu
+        from ..fmu.run import run_fmu
 
         imp, dt, n_steps = check_run_args(params, impulses, dt, n_steps)
         fmu = self.fmu_for(params)

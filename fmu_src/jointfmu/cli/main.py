@@ -86,7 +86,8 @@ def _args_info(p: argparse.ArgumentParser) -> None:
 
 def _cmd_info(args: argparse.Namespace) -> int:
     """Print identity, modes, interface and host requirements of an FMU."""
-    from ..fmu.build import format_fmu_info, read_fmu_info, read_parameter_values, with_parameter_values
+    from ..fmu.info import format_fmu_info, read_fmu_info
+    from ..fmu.ssv import read_parameter_values, with_parameter_values
 
     info = read_fmu_info(args.fmu)
     if args.parameters:
@@ -115,8 +116,10 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     import tempfile
     from pathlib import Path
 
-    from ..fmu.build import (build_fmu, read_fmu_info, read_input_csv, read_parameter_values, run_fmu,
-                        write_csv_atomic)
+    from ..fmu.build import build_fmu
+    from ..fmu.info import read_fmu_info
+    from ..fmu.run import read_input_csv, run_fmu, write_csv_atomic
+    from ..fmu.ssv import read_parameter_values
 
     with tempfile.TemporaryDirectory(prefix="jointfmu_sim_") as tmp:
         model = Path(args.model)
@@ -141,7 +144,7 @@ def _args_export_ssv(p: argparse.ArgumentParser) -> None:
 
 def _cmd_export_ssv(args: argparse.Namespace) -> int:
     """Write the fitted mode values as an SSP 1.0 parameter-value file."""
-    from ..fmu.build import write_ssv
+    from ..fmu.ssv import write_ssv
 
     print(f"wrote {write_ssv(args.params, args.output)}")
     return 0

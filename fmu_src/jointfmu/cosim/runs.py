@@ -34,7 +34,7 @@ def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=Non
 
     s = settings if isinstance(settings, SystemSettings) else settings_from_dict(settings or {})
     if params_path is None:  # the parameter set bundled in the FMU
-        from ..fmu.build import read_fmu_info
+        from ..fmu.info import read_fmu_info
 
         ps = read_fmu_info(fmu_path)["params"]
     else:
