@@ -272,7 +272,7 @@ def test_report_is_complete_and_atomic(tmp_path, monkeypatch):
     caution, and links PNGs that exist; a failing second run leaves the first report untouched
     and no temporary folder behind."""
     from jointfmu import __version__
-    from jointfmu.report.characterization import characterization as R
+    from jointfmu.report import characterization as R
 
     out = tmp_path / "rep"
     index = R.write_report([EXAMPLES / "tray_undertorqued.toml"], out, runner="core")
@@ -300,7 +300,7 @@ def test_report_is_complete_and_atomic(tmp_path, monkeypatch):
 
 
 def test_report_bad_input():
-    from jointfmu.report.characterization import characterization as R
+    from jointfmu.report import characterization as R
     from jointfmu.errors import ParameterError
 
     with pytest.raises(InputError, match="at least one parameter set"):

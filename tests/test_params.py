@@ -19,7 +19,9 @@ import pytest
 from jointfmu import (InputError, JointParams, Mode, ParameterError, ParameterSet, Point,
                       Provenance, check_mode_values, check_parameter_file, load_parameter_set,
                       parse_parameter_set, save_parameter_set)
-from jointfmu import cli
+import importlib
+
+cli = importlib.import_module("jointfmu.cli.main")  # the module (jointfmu.cli.main is also the name of its function)
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = sorted((ROOT / "examples").glob("*.toml"))

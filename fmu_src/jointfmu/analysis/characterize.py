@@ -26,9 +26,8 @@ standards and licensed engineering practice.
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass
-from typing import Protocol, Sequence
+from typing import Sequence
 
 import numpy as np
 from scipy import integrate as _integrate
@@ -36,7 +35,7 @@ from scipy import signal as _signal
 from scipy import special as _special
 from scipy.ndimage import uniform_filter1d
 
-from ..errors import InputError, SimulationError
+from ..errors import InputError
 from ..physics.iwan import backbone, backbone_tangent, dissipation_per_cycle, joint_constants
 from .runners import CoreRunner, RingDown, Runner, check_run_args, get_runner
 

@@ -692,15 +692,10 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         log(f"[2/6] build      {len(builds)} FMUs in {out / 'fmus'}")
         # 3. report
         step("report")
-        import importlib.util
-
-        if importlib.util.find_spec(f"{__package__}.report") is None:
-            log("[3/6] report     skipped: this version has no characterization report module")
-        else:
-            page, runner = _report_step(psets, files, out / "report", quick, c, progress)
-            paths["report"] = page
-            log(f"[3/6] report     {page}  ({runner.hits} ring-downs from the cluster, "
-                f"{runner.misses} computed here)")
+        page, runner = _report_step(psets, files, out / "report", quick, c, progress)
+        paths["report"] = page
+        log(f"[3/6] report     {page}  ({runner.hits} ring-downs from the cluster, "
+            f"{runner.misses} computed here)")
         done("report")
         # 4. sweep
         step("sweep")

@@ -444,10 +444,10 @@ def _report_kwargs(quick: bool) -> dict:
 def characterize_task(params_path, quick: bool = False) -> list:
     """Ring-downs of one build, as the characterization report asks for them (worker task).
 
-    Runs :func:`.report.summarize_build` with the FMU runner and returns every ring-down it
+    Runs :func:`.analysis.summary.summarize_build` with the FMU runner and returns every ring-down it
     made as ``(key, RingDown)`` pairs.
     """
-    from ..report.characterization import summarize_build
+    from ..analysis.summary import summarize_build
     from .system import pin_pythonfmu
 
     pin_pythonfmu()    # before any FMU of an earlier task could shadow it

@@ -17,7 +17,6 @@ import math
 import os
 import shutil
 import tempfile
-from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Sequence
@@ -26,6 +25,7 @@ import numpy as np
 
 from ..analysis import characterize as C
 from ..analysis.runners import FmuRunner, get_runner
+from ..analysis.summary import BuildSummary, as_parameter_set, summarize_build
 from ..errors import InputError
 from ..analysis.linear import CAUTION, equivalent_linear
 from ..fileio import swap_into_place
@@ -39,75 +39,6 @@ DEFAULT_REPORT_DIR = Path("build") / "report"
 _G = 9.80665  # m/s^2, standard gravity (ISO 80000-3), for accelerations shown in g
 _TWO_PI = 2.0 * math.pi
 _RATIOS = (0.1, 0.5, 1.0)  # amplitudes, relative to phimax, shown in the tables
-
-
-@dataclass
-class BuildSummary:
-    """Everything the report shows of one build (also usable on its own).
-
-    Attributes
-    ----------
-    params : ParameterSet
-    curves : list of ModeCurves
-        Closed-form curves per mode, 1e-3..3 phimax.
-    ringdown : RingDown
-        The simulated free decay of all modes (struck together).
-    ringdown_1 : RingDown
-        Mode 1 alone struck (for the time-history plot at an output point).
-    estimates : list of HilbertEstimate
-        Identified damping/frequency per mode.
-    ref_points : list of (str, float)
-        Per mode, the output point where it moves most and its |shape| [1/sqrt(kg)].
-    """
-
-    params: object
-    curves: list
-    ringdown: C.RingDown
-    ringdown_1: C.RingDown
-    estimates: list
-    ref_points: list
-
-
-def _load(p):
-    from ..params import ParameterSet, load_parameter_set
-
-    if isinstance(p, ParameterSet):
-        return p
-    if isinstance(p, (str, os.PathLike)):
-        return load_parameter_set(p)
-    raise InputError(f"{p!r}: give a ParameterSet or the path of a parameter file")
-
-
-def _ref_points(params):
-    out = []
-    for i in range(params.n_modes):
-        best = max(params.output_points, key=lambda p: abs(p.shape[i]), default=None)
-        out.append((best.label, abs(best.shape[i])) if best is not None and best.shape[i] else (None, 1.0))
-    return out
-
-
-def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.03,
-                    samples_per_period: float = 40.0) -> BuildSummary:
-    """Curves, ring-down and Hilbert estimates of one build (the data of one report section).
-
-    Parameters
-    ----------
-    params : ParameterSet or path
-    runner : Runner, "fmu", "core" or None
-        Who simulates the ring-down (default the FMU, :class:`FmuRunner`).
-    start, end : float
-        Ring-down from about ``start * phimax`` to ``end * phimax`` (every mode at once).
-    samples_per_period : float
-        Ring-down samples per period of the highest mode.
-    """
-    ps = _load(params)
-    curves = C.amplitude_curves(ps, lo=1e-3, hi=3.0, n=160)
-    runner = get_runner(runner, default="fmu")
-    rd = C.ring_down(ps, runner, start=start, end=end, samples_per_period=samples_per_period)
-    est = [C.identify_ringdown(rd, i) for i in range(ps.n_modes)]
-    rd1 = C.ring_down(ps, runner, start=start, end=0.1, modes=[0], max_periods=60,
-                      samples_per_period=samples_per_period)
-    return BuildSummary(ps, curves, rd, rd1, est, _ref_points(ps))
 
 
 # ------------------------------------------------------------------------------------------------
@@ -547,7 +478,7 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
 
     if isinstance(params_list, (str, os.PathLike)) or not hasattr(params_list, "__iter__"):
         params_list = [params_list]
-    sets = [_load(p) for p in params_list]
+    sets = [as_parameter_set(p) for p in params_list]
     if not sets:
         raise InputError("write_report: give at least one parameter set")
     target = Path(out_dir) if out_dir is not None else DEFAULT_REPORT_DIR
