@@ -649,3 +649,87 @@ def test_unquoted_toml_date_is_kept_as_text(tmp_path):
     b = load_parameter_set(_write(tmp_path, GOOD, "b.toml"))
     assert a.provenance.date == "2026-10-14"
     assert a.content_hash() == b.content_hash()
+
+
+# ---------------------------------------------------------------------------------------------
+# points[].test_node (optional; maps Universal File Format records to points)
+# ---------------------------------------------------------------------------------------------
+#: Content hashes of the shipped examples, pinned: adding the optional test_node to the format
+#: must not change the hash of a file that does not use it.
+EXAMPLE_HASHES = {
+    "tray_nominal.toml": "b62a94ec77dcc1944e125f7ef52c46dfb46b84a5cc45f9a52575d15867796135",
+    "tray_undertorqued.toml": "57d7f422612224ff746a0069d7f94f405f0802f18c545342ed867223b7af191c",
+    "tray_worn.toml": "acc9ebe86d6c0b63cbf749d2ed401ba083e784bacc83cf088fe68abbb5c917ab",
+}
+
+WITH_NODES = _sub(_sub(GOOD, 'shape = [0.5, 0.3, -0.2]\n', 'shape = [0.5, 0.3, -0.2]\ntest_node = 7\n'),
+                  "base_factor = 1.0\n", "base_factor = 1.0\ntest_node = 12\n")
+
+
+@pytest.mark.parametrize("name", sorted(EXAMPLE_HASHES))
+def test_example_hashes_are_unchanged(name):
+    assert load_parameter_set(ROOT / "examples" / name).content_hash() == EXAMPLE_HASHES[name]
+
+
+def test_test_node_is_read_and_written_back(tmp_path):
+    ps = load_parameter_set(_write(tmp_path, WITH_NODES))
+    assert [p.test_node for p in ps.points] == [7, 12]
+    assert isinstance(ps.points[0].test_node, int)
+    text = ps.to_toml()
+    assert "test_node = 7\n" in text and "test_node = 12\n" in text
+    again = parse_parameter_set(tomllib.loads(text), source="round trip")
+    assert again == ps and again.content_hash() == ps.content_hash()
+    assert again.to_toml() == text
+
+
+def test_test_node_changes_the_hash_only_when_present(tmp_path):
+    plain = load_parameter_set(_write(tmp_path, GOOD, "a.toml"))
+    nodes = load_parameter_set(_write(tmp_path, WITH_NODES, "b.toml"))
+    assert "test_node" not in plain.to_dict()["points"][0]
+    assert "test_node" not in plain.to_toml()
+    assert nodes.content_hash() != plain.content_hash()  # a node number is part of the identity
+    stripped = dataclasses.replace(nodes, points=tuple(dataclasses.replace(p, test_node=None)
+                                                       for p in nodes.points))
+    assert stripped.content_hash() == plain.content_hash()
+
+
+BAD_NODES = [
+    ("zero", "test_node = 7", "test_node = 0",
+     ["points[1] (drive).test_node = 0", "must be a positive integer", ">= 1"]),
+    ("negative", "test_node = 7", "test_node = -3",
+     ["points[1] (drive).test_node = -3", "must be a positive integer"]),
+    ("float", "test_node = 7", "test_node = 7.0",
+     ["points[1] (drive).test_node = 7.0", "must be a positive integer", "got a float"]),
+    ("text", "test_node = 7", 'test_node = "7"',
+     ["points[1] (drive).test_node = '7'", "must be a positive integer", "got a string"]),
+    ("bool", "test_node = 7", "test_node = true",
+     ["points[1] (drive).test_node = True", "got a boolean"]),
+    ("duplicate", "test_node = 12", "test_node = 7",
+     ["points[2] (tip).test_node = 7", "must be unique among points; already used by points[1] (drive)"]),
+    ("misspelt", "test_node = 7", "testnode = 7",
+     ["points[1] (drive).testnode = 7", "unknown key in [[points]]", "did you mean 'test_node'?"]),
+]
+
+
+@pytest.mark.parametrize("old,new,expected", [b[1:] for b in BAD_NODES], ids=[b[0] for b in BAD_NODES])
+def test_bad_test_node_is_reported(tmp_path, old, new, expected):
+    path = _write(tmp_path, _sub(WITH_NODES, old, new))
+    lines = [str(p) for p in check_parameter_file(path)]
+    assert any(all(e in line for e in expected) for line in lines), "\n".join(lines)
+
+
+def test_point_dataclass_checks_test_node():
+    assert Point("p", "output", "+z", (1.0,), test_node=3).test_node == 3
+    with pytest.raises(ParameterError, match=r"point \(p\)\.test_node = 0: must be a positive integer"):
+        Point("p", "output", "+z", (1.0,), test_node=0)
+    good = Mode("m", f0=100.0, zeta=0.01, joint=JointParams(1.0, 1.0e4, -0.5, 0.0))
+    with pytest.raises(ParameterError, match=r"test_node = 4: must be unique among points"):
+        ParameterSet("s", "b", "", Provenance(), (good,),
+                     (Point("p", "input", "+z", (1.0,), test_node=4),
+                      Point("q", "output", "+z", (1.0,), test_node=4)))
+
+
+def test_cli_check_accepts_test_node(tmp_path, capsys):
+    path = _write(tmp_path, WITH_NODES)
+    assert cli.main(["check", str(path)]) == 0
+    assert capsys.readouterr().out.startswith("OK  ")

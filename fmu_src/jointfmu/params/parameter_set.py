@@ -80,7 +80,7 @@ _PROVENANCE_KEYS = ("fitted_by", "date", "source_data", "notes")
 _BASE_KEYS = ("total_mass", "direction")
 _MODE_KEYS = ("label", "f0", "zeta", "base_participation", "joint")
 _JOINT_KEYS = ("Fs", "Kt", "f_macro", "chi", "beta")
-_POINT_KEYS = ("label", "role", "direction", "shape", "base_factor")
+_POINT_KEYS = ("label", "role", "direction", "shape", "base_factor", "test_node")
 
 _HEADER = """\
 # jointfmu parameter set (format jointfmu-params/1), SI units.
@@ -395,6 +395,11 @@ class Point:
         Mass-normalized mode-shape coefficient of every mode at this point [1/sqrt(kg)].
     base_factor : float
         Component of the unit base motion along this point's direction [-], ``|base_factor| <= 1``.
+    test_node : int or None
+        Node number of this point in the lab's test geometry (a positive integer, unique among
+        the points), used to map Universal File Format records to the point; None when not
+        given.  Optional and left out of the canonical form when None, so sets without it keep
+        their content hash.
     """
 
     label: str
@@ -402,16 +407,19 @@ class Point:
     direction: str
     shape: tuple[float, ...]
     base_factor: float = 1.0
+    test_node: int | None = None
 
     def __post_init__(self) -> None:
         problems: list[Problem] = []
         _label(self.label, _PYTHON, "point.label", problems)
         pre = f"point ({self.label})" if isinstance(self.label, str) else "point"
         shape = _check_point_values(self.role, self.direction, self.shape, self.base_factor,
-                                    _PYTHON, pre + ".", problems)
+                                    _PYTHON, pre + ".", problems, self.test_node)
         _raise(problems)
         object.__setattr__(self, "shape", shape)
         object.__setattr__(self, "base_factor", float(self.base_factor) + 0.0)
+        if self.test_node is not None:
+            object.__setattr__(self, "test_node", int(self.test_node))
 
     @property
     def is_input(self) -> bool:
@@ -425,7 +433,8 @@ class Point:
 
 
 def _check_point_values(role: Any, direction: Any, shape: Any, base_factor: Any, file: str,
-                        pre: str, problems: list[Problem]) -> tuple[float, ...] | None:
+                        pre: str, problems: list[Problem], test_node: Any = None
+                        ) -> tuple[float, ...] | None:
     if role not in ROLES:
         problems.append(Problem(file, pre + "role", role,
                                 "must be one of " + ", ".join(repr(r) for r in ROLES),
@@ -448,6 +457,13 @@ def _check_point_values(role: Any, direction: Any, shape: Any, base_factor: Any,
     if bf is not None and not abs(bf) <= 1.0:
         problems.append(Problem(file, pre + "base_factor", base_factor,
                                 "must satisfy -1 <= base_factor <= 1 (a component of a unit vector)"))
+    if test_node is not None:
+        rule = "must be a positive integer (the point's node number in the test geometry)"
+        if not isinstance(test_node, numbers.Integral) or isinstance(test_node, bool):
+            problems.append(Problem(file, pre + "test_node", test_node,
+                                    f"{rule}, got {_type_name(test_node)}"))
+        elif not test_node > 0:
+            problems.append(Problem(file, pre + "test_node", test_node, rule + ", >= 1"))
     return out
 
 
@@ -516,6 +532,20 @@ def _check_unique(items: list[Any], what: str, file: str, problems: list[Problem
             seen[lab] = i
 
 
+def _check_unique_nodes(nodes: list[Any], fields: list[str], file: str,
+                        problems: list[Problem]) -> None:
+    """Report the second and later uses of a ``test_node`` number among the points."""
+    seen: dict[int, str] = {}
+    for node, fld in zip(nodes, fields):
+        if not (isinstance(node, numbers.Integral) and not isinstance(node, bool)):
+            continue
+        if int(node) in seen:
+            problems.append(Problem(file, fld + ".test_node", node,
+                                    f"must be unique among points; already used by {seen[int(node)]}"))
+        else:
+            seen[int(node)] = fld
+
+
 def _check_mass_sum(gammas: Iterable[float], base: Base, file: str, problems: list[Problem]) -> None:
     """sum(Gamma_i^2) <= total mass: effective modal masses cannot exceed the total mass."""
     total = math.fsum(float(g) ** 2 for g in gammas)
@@ -543,6 +573,7 @@ def _check_set(name: Any, build: Any, description: Any, modes: Any, points: Any,
         problems.append(Problem(file, "modes", [], "at least one mode is required"))
     _check_unique(list(modes), "modes", file, problems)
     _check_unique(list(points), "points", file, problems)
+    _check_unique_nodes([p.test_node for p in points], point_fields, file, problems)
     for k, p in enumerate(points, start=1):
         if n and len(p.shape) != n:
             problems.append(Problem(file, point_fields[k - 1] + ".shape", list(p.shape),
@@ -636,8 +667,8 @@ class ParameterSet:
         """Canonical plain dict in the layout of the TOML file.
 
         ``Kt`` is always given (never ``f_macro``), all numbers are floats, all provenance keys are
-        present, ``base_participation`` appears only when there is a base, ``points`` is a list
-        (possibly empty).  ``parse_parameter_set(s.to_dict()) == s``.
+        present, ``base_participation`` appears only when there is a base, a point's ``test_node``
+        only when it has one, ``points`` is a list (possibly empty).  ``parse_parameter_set(s.to_dict()) == s``.
         """
         d: dict[str, Any] = {
             "format": FORMAT,
@@ -654,8 +685,13 @@ class ParameterSet:
             md["joint"] = {"Fs": m.joint.Fs, "Kt": m.joint.Kt, "chi": m.joint.chi, "beta": m.joint.beta}
             modes.append(md)
         d["modes"] = modes
-        d["points"] = [{"label": p.label, "role": p.role, "direction": p.direction,
-                        "shape": list(p.shape), "base_factor": p.base_factor} for p in self.points]
+        d["points"] = []
+        for p in self.points:
+            pd: dict[str, Any] = {"label": p.label, "role": p.role, "direction": p.direction,
+                                  "shape": list(p.shape), "base_factor": p.base_factor}
+            if p.test_node is not None:  # only when given: sets without it keep their hash
+                pd["test_node"] = p.test_node
+            d["points"].append(pd)
         return d
 
     def content_hash(self) -> str:
@@ -792,6 +828,8 @@ def _tval(v: Any) -> str:
         return _tstr(v)
     if isinstance(v, float):
         return repr(v)  # always has '.' or 'e'; never nan/inf (validated)
+    if isinstance(v, int) and not isinstance(v, bool):
+        return str(v)  # an integer (test_node), read back as a TOML integer
     if isinstance(v, list):
         return "[" + ", ".join(_tval(x) for x in v) + "]"
     raise TypeError(f"cannot write {type(v).__name__} to TOML")  # pragma: no cover
@@ -940,9 +978,11 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
             shp = _check_point_values(role if role is not None else "input",
                                       direction if direction is not None else "-",
                                       shape if shape is not None else [0.0],
-                                      pd.get("base_factor", 1.0), f, pre + ".", problems)
+                                      pd.get("base_factor", 1.0), f, pre + ".", problems,
+                                      pd.get("test_node"))
             if len(problems) == n_before and not missing and shp is not None:
-                points.append(Point(lab, role, direction, shp, float(pd.get("base_factor", 1.0)) + 0.0))
+                points.append(Point(lab, role, direction, shp, float(pd.get("base_factor", 1.0)) + 0.0,
+                                    pd.get("test_node")))
 
     # Whole-set checks, on the raw data so that they run even when some mode or point is broken.
     if name is not None:
@@ -954,6 +994,8 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
     _check_unique(raw_modes if isinstance(raw_modes, list) else [], "modes", f, problems)
     if isinstance(raw_points, list):
         _check_unique(raw_points, "points", f, problems)
+        _check_unique_nodes([pd.get("test_node") if isinstance(pd, Mapping) else None
+                             for pd in raw_points], point_fields, f, problems)
         for k, pd in enumerate(raw_points, start=1):
             shape = pd.get("shape") if isinstance(pd, Mapping) else None
             if n_modes and isinstance(shape, list) and shape and len(shape) != n_modes:
