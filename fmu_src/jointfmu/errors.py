@@ -17,6 +17,8 @@ __all__ = [
     "InputError",
     "SimulationError",
     "BuildError",
+    "OutputPathError",
+    "JointFmuWarning",
     "did_you_mean",
 ]
 
@@ -79,6 +81,33 @@ class SimulationError(JointFmuError, RuntimeError):
 
 class BuildError(JointFmuError, RuntimeError):
     """An FMU could not be built; nothing was left behind."""
+
+
+class OutputPathError(JointFmuError, OSError):
+    """A file or folder cannot be written where it was asked for (under a regular file, in a
+    folder without write permission, a folder where a file is expected...).  Raised before any
+    work starts, so nothing is half-written.
+
+    Attributes
+    ----------
+    path : str
+        The output path as given.
+    reason : str
+        Why it cannot be written there.
+    """
+
+    def __init__(self, what: str, path: str, reason: str):
+        self.path = path
+        self.reason = reason
+        super().__init__(f"{what} {path!r}: {reason}")
+
+    def __str__(self) -> str:  # OSError's own __str__ would print the args tuple
+        return self.args[0]
+
+
+class JointFmuWarning(UserWarning):
+    """Something the user should know that does not stop the work (an FMU input left at its
+    start value because the input file has no column for it, say)."""
 
 
 def did_you_mean(key: str, allowed: Iterable[str]) -> str:

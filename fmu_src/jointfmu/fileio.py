@@ -4,6 +4,9 @@ Every file jointfmu writes goes through :func:`atomic_write`: the content goes t
 in the target folder, which is then given a normal new file's permissions and moved onto the
 target in one ``os.replace``; on any error the temporary file is removed and the target is as it
 was.
+
+:func:`check_output_path` is the one check, made before a command starts its work, that an output
+can be written where it was asked for; it names the path and the reason when it cannot.
 """
 from __future__ import annotations
 
@@ -13,7 +16,72 @@ import tempfile
 from contextlib import contextmanager
 from pathlib import Path
 
-__all__ = ["atomic_write", "publish", "swap_into_place"]
+from .errors import OutputPathError
+
+__all__ = ["atomic_write", "check_output_path", "publish", "swap_into_place"]
+
+#: What :func:`check_output_path` is asked to check: a file written atomically beside itself, a
+#: folder replaced as a whole (built beside itself, then renamed), a folder written into.
+OUTPUT_KINDS = ("file", "folder", "into")
+
+
+def check_output_path(path: str | os.PathLike, kind: str = "file", what: str = "output") -> Path:
+    """Check, before any work starts, that ``path`` can be written; raise if it cannot.
+
+    What every writer here needs (:func:`atomic_write`, :func:`swap_into_place`): the nearest
+    existing folder at or above ``path``'s parent is a folder (not a regular file) in which this
+    user may create entries (``os.access`` with ``W_OK | X_OK``: the permission bits, a
+    read-only file system, ACLs); for ``kind="into"`` an existing ``path`` must itself be such
+    a folder.  An existing ``path`` must be a file for ``"file"`` and a folder otherwise.
+
+    Parameters
+    ----------
+    path : path-like
+    kind : {"file", "folder", "into"}
+        A file replaced atomically, a folder replaced as a whole, or a folder files are
+        written into (created if missing).
+    what : str
+        How the path was given, for the message (``"--output"``, ``"report folder"``...).
+
+    Returns
+    -------
+    Path
+
+    Raises
+    ------
+    OutputPathError
+        One line naming the path and the reason.
+
+    Notes
+    -----
+    The superuser passes ``os.access`` for any permission bits, and another process may change
+    the file system after the check; the writers stay atomic, and the CLI turns a later
+    ``OSError`` into a one-line message as well.
+    """
+    if kind not in OUTPUT_KINDS:
+        raise ValueError(f"kind {kind!r}: allowed are {', '.join(OUTPUT_KINDS)}")
+    p = Path(path)
+    text = str(path)
+    try:
+        if p.exists():
+            if kind == "file" and p.is_dir():
+                raise OutputPathError(what, text, "it is a folder; a file path is needed here")
+            if kind != "file" and not p.is_dir():
+                raise OutputPathError(what, text, "it is a file; a folder path is needed here")
+        folder = p if kind == "into" and p.is_dir() else p.parent
+        while not os.path.lexists(folder) and folder != folder.parent:
+            folder = folder.parent
+        if not folder.is_dir():
+            raise OutputPathError(what, text, f"{str(folder)!r} is a file, not a folder"
+                                  if folder.is_file() else f"{str(folder)!r} is not a folder")
+    except OSError as exc:
+        if isinstance(exc, OutputPathError):
+            raise
+        raise OutputPathError(what, text, f"cannot be inspected: {exc.strerror or exc}") from None
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise OutputPathError(what, text, f"folder {str(folder)!r} is not writable "
+                                          "(permission denied or a read-only file system)")
+    return p
 
 
 def publish(tmp: str | os.PathLike, dest: str | os.PathLike) -> None:

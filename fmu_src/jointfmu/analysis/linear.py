@@ -51,7 +51,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from ..errors import InputError
-from ..fileio import swap_into_place
+from ..fileio import check_output_path, swap_into_place
 from ..physics.iwan import dissipation_per_cycle, joint_constants
 
 __all__ = [
@@ -355,9 +355,8 @@ class LinearModel:
         """
         target = Path(directory)
         parent = target.parent
+        check_output_path(target, "folder", "output folder")
         parent.mkdir(parents=True, exist_ok=True)
-        if target.exists() and not target.is_dir():
-            raise InputError(f"output {str(target)!r} exists and is not a folder")
         tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=parent))
         os.chmod(tmp, 0o755)  # mkdtemp makes it private; the model is meant to be shared
         try:

@@ -29,7 +29,7 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Sequence
 
-from ..fileio import atomic_write
+from ..fileio import atomic_write, check_output_path
 from ..errors import InputError, ParameterError
 
 __all__ = ["CAUTION", "EXAMPLE_FILES", "find_examples", "run_demo", "write_system_page",
@@ -184,6 +184,7 @@ def cmd_cosim(args) -> int:
     out = Path(args.output)
     if out.suffix.lower() not in (".parquet", ".csv"):
         raise InputError(f"--output {str(out)!r}: allowed suffixes are .parquet and .csv")
+    check_output_path(out, "file", "--output")
     s = _settings(args)
     model = Path(args.model)
     with tempfile.TemporaryDirectory(prefix="jointfmu_cosim_") as tmp:
@@ -239,7 +240,7 @@ def cmd_sweep(args) -> int:
     _check_files(files)
     cases, modes, settings = _cases(args.cases), _controller_modes(args.controller), _settings(args)
     _check_scheduler(args.scheduler)
-    out = Path(args.out)
+    out = check_output_path(args.out, "into", "--out")
     builds = _build_all(files, out / "fmus")
     tasks = _sweep_tasks(builds, cases, modes, settings, out / "histories", args.quick)
     res = run_tasks(tasks, out / "results.parquet", executor="loop" if args.loop else "dask",
@@ -604,6 +605,7 @@ def add_demo_args(p: argparse.ArgumentParser) -> None:
 def cmd_demo(args) -> int:
     """The whole day in one command (see the module docstring)."""
     files = [Path(p) for p in args.params] if args.params else find_examples()
+    check_output_path(args.out, "into", "--out")
     summary = run_demo(files, args.out, quick=args.quick, scheduler=args.scheduler,
                        n_workers=args.workers, progress=not args.no_progress)
     print(summary["text"])

@@ -8,10 +8,11 @@ from __future__ import annotations
 
 import argparse
 import sys
+import warnings
 from typing import Callable, Sequence
 
 from .. import __version__
-from ..errors import JointFmuError
+from ..errors import JointFmuError, JointFmuWarning
 from ..params import check_parameter_file, load_parameter_set
 
 __all__ = ["main", "run"]
@@ -99,13 +100,22 @@ def _cmd_info(args: argparse.Namespace) -> int:
 
 
 def _args_simulate(p: argparse.ArgumentParser) -> None:
+    from ..fmu.run import DEFAULT_MAX_ROWS
+
     p.add_argument("model", metavar="FMU|PARAMS", help="an FMU, or a parameter file to build first")
     p.add_argument("--input", required=True, metavar="CSV",
-                   help="CSV with a 'time' column [s] and input-variable columns, held between rows")
-    p.add_argument("--output", required=True, metavar="CSV", help="CSV to write: time and all outputs")
+                   help="CSV with a 'time' column [s] and input-variable columns, held between "
+                        "rows; an input without a column is held at 0 (with a warning)")
+    p.add_argument("--output", required=True, metavar="CSV",
+                   help="CSV to write: time and all outputs, streamed row by row")
     p.add_argument("--stop-time", type=float, metavar="S", help="default: last input time")
     p.add_argument("--step", type=float, metavar="S",
-                   help="communication step (default: the FMU's DefaultExperiment stepSize)")
+                   help="communication step (default: the FMU's DefaultExperiment stepSize); "
+                        "every input time is a communication point as well")
+    p.add_argument("--max-rows", type=int, default=DEFAULT_MAX_ROWS, metavar="N",
+                   help=f"refuse a run with more output rows (default {DEFAULT_MAX_ROWS:,}); a "
+                        "run whose CSV would not fit in the output folder's free space is "
+                        "refused as well")
     p.add_argument("--parameters", metavar="SSV",
                    help="SSP 1.0 parameter-values file (e.g. another build's, from export-ssv) "
                         "applied as start values; checked like 'jointfmu check'")
@@ -116,11 +126,13 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     import tempfile
     from pathlib import Path
 
+    from ..fileio import check_output_path
     from ..fmu.build import build_fmu
     from ..fmu.info import read_fmu_info
-    from ..fmu.run import read_input_csv, run_fmu, write_csv_atomic
+    from ..fmu.run import read_input_csv, simulate_to_csv
     from ..fmu.ssv import read_parameter_values
 
+    check_output_path(args.output, "file", "--output")
     with tempfile.TemporaryDirectory(prefix="jointfmu_sim_") as tmp:
         model = Path(args.model)
         fmu = model if model.suffix.lower() == ".fmu" else build_fmu(model, Path(tmp) / "m.fmu").path
@@ -128,11 +140,11 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
         start = read_parameter_values(args.parameters, info["params"]) if args.parameters else {}
         inputs = [v["name"] for v in info["variables"] if v["causality"] == "input"]
         times, columns = read_input_csv(args.input, inputs)
-        header, rows = run_fmu(fmu, times, columns, stop_time=args.stop_time, step=args.step,
-                               start_values=start)
-    out = write_csv_atomic(args.output, header, rows)
+        r = simulate_to_csv(fmu, times, columns, args.output, stop_time=args.stop_time,
+                            step=args.step, start_values=start, max_rows=args.max_rows)
     applied = f", {len(start)} parameter values from {args.parameters}" if args.parameters else ""
-    print(f"wrote {out}: {len(rows)} rows, {len(header) - 1} outputs{applied}")
+    print(f"wrote {r.path}: {r.n_rows} rows from 0 to {r.stop_time:g} s (step {r.step:g} s), "
+          f"{len(r.columns) - 1} outputs{applied}")
     return 0
 
 
@@ -248,9 +260,13 @@ def _cmd_linearize(args: argparse.Namespace) -> int:
     import numpy as np
 
     from ..errors import InputError
+    from ..fileio import check_output_path
     from ..analysis.linear import amplitude_vector, equivalent_linear, modal_amplitudes_at_point
 
     ps = load_parameter_set(args.params)
+    slug = re.sub(r"[^A-Za-z0-9]+", "-", ps.build).strip("-").lower() or "build"
+    out = Path(args.output) if args.output else Path("build") / "linear" / f"{ps.name}_{slug}"
+    check_output_path(out, "folder", "--output")
     if args.amplitude is None and not args.modal_amplitude:
         raise InputError("give --amplitude POINT[.x|.v|.a]=VALUE or --modal-amplitude MODE=VALUE "
                          "(--modal-amplitude all=0 for the low-amplitude model)")
@@ -272,8 +288,6 @@ def _cmd_linearize(args: argparse.Namespace) -> int:
     amps = amplitude_vector(ps, chosen)
     split = (lambda s: [n.strip() for n in s.split(",") if n.strip()] if s is not None else None)
     lm = equivalent_linear(ps, amps, inputs=split(args.inputs), outputs=split(args.outputs))
-    slug = re.sub(r"[^A-Za-z0-9]+", "-", ps.build).strip("-").lower() or "build"
-    out = Path(args.output) if args.output else Path("build") / "linear" / f"{ps.name}_{slug}"
     lm.save(out)
     print(f"wrote {out}: {ps.set_id}, {len(lm.input_names)} inputs, {len(lm.output_names)} "
           f"outputs, {lm.A.shape[0]} states")
@@ -319,8 +333,30 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """jointfmu's own warnings as one line on stderr; any other as Python shows it."""
+    if issubclass(category, JointFmuWarning):
+        print(f"jointfmu: warning: {message}", file=sys.stderr)
+    else:
+        print(warnings.formatwarning(message, category, filename, lineno, line),
+              file=sys.stderr, end="")
+
+
+def _os_error_text(exc: OSError) -> str:
+    """One line for an OSError nothing else caught: the path(s), then the system's reason."""
+    paths = " -> ".join(repr(str(p)) for p in (exc.filename, exc.filename2) if p is not None)
+    reason = exc.strerror or str(exc)
+    return f"{paths}: {reason}" if paths else reason
+
+
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line; return the exit code (0 ok, 1 failure, 2 usage error)."""
+    """Run the command line; return the exit code (0 ok, 1 failure, 2 usage error).
+
+    A :class:`JointFmuError` is printed as one line; so is, as a last resort, an ``OSError``
+    that no check caught first (a folder that became read-only during a run, a full disk),
+    naming the path and the system's reason.  A closed standard output (``| head``) is left to
+    :func:`run`.
+    """
     parser = _parser()
     try:
         args = parser.parse_args(argv)
@@ -331,9 +367,17 @@ def main(argv: Sequence[str] | None = None) -> int:
         print("jointfmu: error: a command is required", file=sys.stderr)
         return 2
     try:
-        return int(args._run(args))
+        with warnings.catch_warnings():
+            warnings.simplefilter("always", JointFmuWarning)
+            warnings.showwarning = _show_warning
+            return int(args._run(args))
     except JointFmuError as e:
         print(f"jointfmu: error: {e}", file=sys.stderr)
+        return 1
+    except BrokenPipeError:
+        raise
+    except OSError as e:
+        print(f"jointfmu: error: {_os_error_text(e)}", file=sys.stderr)
         return 1
     except KeyboardInterrupt:
         print("jointfmu: interrupted", file=sys.stderr)
@@ -347,11 +391,22 @@ def run() -> None:
     ("corrupted double-linked list", after all work and output are done; see DEVELOPERS.md), which
     would turn a successful run into a failed exit code.  Everything is written and flushed by
     then, so the process ends with ``os._exit`` and the command's own code.
+
+    When the reader of standard output goes away (``jointfmu build ... | head -2``) the rest of
+    the output is dropped quietly and the exit code is 1, as the Python documentation
+    recommends ("Note on SIGPIPE", in the ``signal`` module): standard output is pointed at
+    ``os.devnull`` so that no later flush fails again.
     """
     import logging
     import os
 
-    code = main()
+    try:
+        code = main()
+        sys.stdout.flush()
+    except BrokenPipeError:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        code = 1
     logging.shutdown()
     for stream in (sys.stdout, sys.stderr):
         try:

@@ -46,7 +46,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from xml.etree import ElementTree as ET
 
-from ..fileio import publish
+from ..fileio import check_output_path, publish
 from ..errors import BuildError, JointFmuError
 from ..params import (ParameterSet, load_parameter_set)
 from .slave import BUILD_INFO_FILE, PARAMETER_FILE
@@ -147,6 +147,7 @@ def build_fmu(params_path: str | os.PathLike, output: str | os.PathLike | None =
     out = Path(output) if output is not None else default_output_path(params, cwd)
     if out.suffix.lower() != ".fmu":
         raise BuildError(f"output {str(out)!r} must end in '.fmu'")
+    check_output_path(out, "file", "output FMU")
     ident, core, _ = fmu_names(params)
     try:
         from pythonfmu.builder import FmuBuilder

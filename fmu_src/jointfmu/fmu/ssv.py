@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Mapping
 from xml.etree import ElementTree as ET
 
-from ..fileio import atomic_write
+from ..fileio import atomic_write, check_output_path
 from ..errors import InputError, ParameterError, Problem, did_you_mean
 from ..params import (MODE_VALUE_NAMES, ParameterSet, check_mode_values,
                      load_parameter_set)
@@ -93,6 +93,7 @@ def write_ssv(params_path: str | os.PathLike, output: str | os.PathLike | None =
         default_output_path(params, cwd).with_suffix(".ssv")
     if out.suffix.lower() != ".ssv":
         raise InputError(f"output {str(out)!r} must end in '.ssv'")
+    check_output_path(out, "file", "output")
     with atomic_write(out, "wb") as f:
         f.write(parameter_values_ssv(params))
     return out

@@ -28,7 +28,7 @@ from ..analysis.runners import FmuRunner, get_runner
 from ..analysis.summary import BuildSummary, as_parameter_set, summarize_build
 from ..errors import InputError
 from ..analysis.linear import CAUTION, equivalent_linear
-from ..fileio import swap_into_place
+from ..fileio import check_output_path, swap_into_place
 
 __all__ = ["write_report", "BuildSummary", "summarize_build", "FmuRunner", "get_runner",
            "DEFAULT_REPORT_DIR"]
@@ -482,8 +482,7 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
     if not sets:
         raise InputError("write_report: give at least one parameter set")
     target = Path(out_dir) if out_dir is not None else DEFAULT_REPORT_DIR
-    if target.exists() and not target.is_dir():
-        raise InputError(f"report folder {str(target)!r} exists and is not a folder")
+    check_output_path(target, "folder", "report folder")
     run = get_runner(runner, default="fmu")
     kw = {"end": 0.2, "samples_per_period": 24.0} if quick else {}
     summaries = [summarize_build(p, run, **kw) for p in sets]
