@@ -33,8 +33,8 @@ from ..fileio import atomic_write, check_output_path
 from ..errors import InputError, ParameterError
 
 __all__ = ["CAUTION", "EXAMPLE_FILES", "find_examples", "run_demo", "write_system_page",
-           "add_cosim_args", "cmd_cosim", "add_sweep_args", "cmd_sweep", "add_demo_args",
-           "cmd_demo"]
+           "add_system_options", "system_settings", "add_cosim_args", "cmd_cosim",
+           "add_sweep_args", "cmd_sweep", "add_demo_args", "cmd_demo"]
 
 #: Printed by the demo and written on its pages.
 CAUTION = ("A fitted model is no substitute for qualification testing; defer to the applicable "
@@ -85,12 +85,14 @@ def _atomic_figure(fig, path: Path) -> Path:
     return path
 
 
-def _settings(args) -> "object":
+def system_settings(args) -> "object":
+    """The :class:`.system.SystemSettings` of the options :func:`add_system_options` declared."""
     from ..cosim.system import ControllerSettings, SystemSettings
 
     c = ControllerSettings(gain=args.gain, tau=args.tau, force_limit=args.force_limit)
     return SystemSettings(step=args.step, duration=args.duration, seed=args.seed,
-                          level=args.level, controller=c, components=args.components)
+                          level=args.level, controller=c,
+                          components=getattr(args, "components", "python"))
 
 
 def _controller_modes(text: str) -> tuple[bool, ...]:
@@ -137,7 +139,9 @@ def _sweep_tasks(builds, cases, controller, settings, history_dir, quick: bool):
 
 
 # ----------------------------------------------------------------------------- cosim CLI
-def _add_system_options(p: argparse.ArgumentParser) -> None:
+def add_system_options(p: argparse.ArgumentParser, components: bool = True) -> None:
+    """The options of a system run (step, duration, load, controller values; with
+    ``components`` also ``--components``), read back by :func:`system_settings`."""
     from ..cosim.system import ControllerSettings, SystemSettings
 
     d, c = SystemSettings(), ControllerSettings()
@@ -155,6 +159,8 @@ def _add_system_options(p: argparse.ArgumentParser) -> None:
                    help=f"actuator time constant [s] (default {c.tau:g})")
     g.add_argument("--force-limit", type=float, default=c.force_limit, metavar="N",
                    help=f"actuator force limit [N] (default {c.force_limit:g})")
+    if not components:
+        return
     g.add_argument("--components", default="python", choices=["python", "fmu"],
                    help="loads model and controller as Python components of the loop (default) "
                         "or as FMUs of their own: a system of three FMUs, same numbers")
@@ -170,7 +176,7 @@ def add_cosim_args(p: argparse.ArgumentParser) -> None:
                    help="active damper off or on (default off)")
     p.add_argument("-o", "--output", required=True, metavar="FILE",
                    help="time histories to write (.parquet or .csv)")
-    _add_system_options(p)
+    add_system_options(p)
 
 
 def cmd_cosim(args) -> int:
@@ -185,7 +191,7 @@ def cmd_cosim(args) -> int:
     if out.suffix.lower() not in (".parquet", ".csv"):
         raise InputError(f"--output {str(out)!r}: allowed suffixes are .parquet and .csv")
     check_output_path(out, "file", "--output")
-    s = _settings(args)
+    s = system_settings(args)
     model = Path(args.model)
     with tempfile.TemporaryDirectory(prefix="jointfmu_cosim_") as tmp:
         if model.suffix.lower() == ".fmu":
@@ -228,7 +234,7 @@ def add_sweep_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--loop", action="store_true", help="run in this process, no Dask")
     p.add_argument("--quick", action="store_true", help="short runs (each case's quick duration)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
-    _add_system_options(p)
+    add_system_options(p)
 
 
 def cmd_sweep(args) -> int:
@@ -238,7 +244,8 @@ def cmd_sweep(args) -> int:
     files = [Path(p) for p in args.params]
     # every input checked before anything is written
     _check_files(files)
-    cases, modes, settings = _cases(args.cases), _controller_modes(args.controller), _settings(args)
+    cases, modes = _cases(args.cases), _controller_modes(args.controller)
+    settings = system_settings(args)
     _check_scheduler(args.scheduler)
     out = check_output_path(args.out, "into", "--out")
     builds = _build_all(files, out / "fmus")

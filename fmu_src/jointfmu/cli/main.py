@@ -162,6 +162,35 @@ def _cmd_export_ssv(args: argparse.Namespace) -> int:
     return 0
 
 
+# --- export-ssp (the system as an SSP 1.0 package, see cosim/ssp.py) ------------------------------
+def _args_export_ssp(p: argparse.ArgumentParser) -> None:
+    from ..cosim.system import LOAD_CASES
+    from .demo import add_system_options
+
+    p.add_argument("params", metavar="PARAMS", help="parameter file of the build (the structure)")
+    p.add_argument("--case", required=True, choices=list(LOAD_CASES), help="load case")
+    p.add_argument("--controller", default="off", choices=["off", "on"],
+                   help="with the active-damper FMU (on) or without it (off, the default, as "
+                        "in 'jointfmu cosim')")
+    p.add_argument("-o", "--output", required=True, metavar="SSP", help="the .ssp file to write")
+    add_system_options(p, components=False)
+
+
+def _cmd_export_ssp(args: argparse.Namespace) -> int:
+    """Write the system (structure, loads and damper FMUs, connections, parameter values) as an
+    SSP 1.0 package."""
+    from ..cosim.ssp import export_ssp
+    from .demo import CAUTION, system_settings
+
+    r = export_ssp(args.params, args.case, args.controller == "on", args.output,
+                   system_settings(args))
+    print(f"wrote {r.path}: {r.set_id}, case {args.case}, controller {args.controller}; "
+          f"components {', '.join(r.components)}; {len(r.connections)} connections; "
+          f"{r.stop_time:g} s at a step of {r.step:g} s (SSP 1.0, checked against its schemas)")
+    print(CAUTION)
+    return 0
+
+
 # --- cosim, sweep, demo (system co-simulation and sweeps, see system.py, sweep.py, demo.py) -------
 def _args_cosim(p: argparse.ArgumentParser) -> None:
     from .demo import add_cosim_args
@@ -312,6 +341,8 @@ _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
                                     "sweep, linearize"),
     "export-ssv": (_args_export_ssv, _cmd_export_ssv,
                    "write the fitted mode values as an SSP 1.0 parameter-values file (.ssv)"),
+    "export-ssp": (_args_export_ssp, _cmd_export_ssp,
+                   "the system (structure, loads and damper FMUs) as an SSP 1.0 package (.ssp)"),
     "report": (_args_report, _cmd_report,
                "characterization report (HTML + PNG) of one or more builds"),
     "linearize": (_args_linearize, _cmd_linearize,

@@ -10,7 +10,7 @@ import os
 import re
 from functools import lru_cache
 from pathlib import Path
-from typing import Mapping
+from typing import Mapping, Sequence
 from xml.etree import ElementTree as ET
 
 from ..fileio import atomic_write, check_output_path
@@ -24,15 +24,72 @@ from .bundle import jointfmu_version
 from .info import read_fmu_info
 
 __all__ = [
+    "SSV_NS",
+    "SSC_NS",
     "parameter_values_ssv",
+    "ssp_schema",
+    "ssv_document",
     "write_ssv",
     "read_parameter_values",
     "with_parameter_values",
 ]
 
 # ----------------------------------------------------------------------- SSP parameter values
-_SSV_NS = "http://ssp-standard.org/SSP1/SystemStructureParameterValues"
-_SSC_NS = "http://ssp-standard.org/SSP1/SystemStructureCommon"
+SSV_NS = "http://ssp-standard.org/SSP1/SystemStructureParameterValues"
+SSC_NS = "http://ssp-standard.org/SSP1/SystemStructureCommon"
+
+
+def ssv_document(name: str, description: str,
+                 parameters: Sequence[tuple[str, float, str | None, str]],
+                 units: Mapping[str, Mapping[str, int]], *, author: str | None = None,
+                 annotation: tuple[str, str, Mapping[str, str]] | None = None) -> bytes:
+    """An SSP 1.0 parameter-values document (``ssv:ParameterSet``) of Real parameters.
+
+    Parameters
+    ----------
+    name, description : str
+        Of the parameter set.
+    parameters : sequence of (name, value, unit or None, description)
+        In file order; ``unit`` None writes no ``unit`` attribute.
+    units : mapping str -> mapping str -> int
+        SI base-unit exponents (``ssc:BaseUnit``) of every unit named in ``parameters``.
+    author : str, optional
+    annotation : (type, tag, attributes), optional
+        One ``ssc:Annotation`` of that type holding one element.
+
+    Returns
+    -------
+    bytes
+        UTF-8 XML.
+    """
+    ET.register_namespace("ssv", SSV_NS)
+    ET.register_namespace("ssc", SSC_NS)
+    v, c = f"{{{SSV_NS}}}", f"{{{SSC_NS}}}"
+    root = ET.Element(v + "ParameterSet", {
+        "version": "1.0", "name": name, "description": description,
+        "generationTool": f"jointfmu {jointfmu_version()}",
+    })
+    if author:
+        root.set("author", author)
+    plist = ET.SubElement(root, v + "Parameters")
+    used = set()
+    for pname, value, unit, text in parameters:
+        p = ET.SubElement(plist, v + "Parameter", name=pname, description=text)
+        real = ET.SubElement(p, v + "Real", value=format_real(value))
+        if unit is not None:
+            real.set("unit", unit)
+            used.add(unit)
+    if used:
+        ulist = ET.SubElement(root, v + "Units")
+        for uname in sorted(used):
+            u = ET.SubElement(ulist, c + "Unit", name=uname)
+            ET.SubElement(u, c + "BaseUnit", {k: str(e) for k, e in units[uname].items()})
+    if annotation is not None:
+        kind, tag, attrs = annotation
+        ann = ET.SubElement(ET.SubElement(root, v + "Annotations"), c + "Annotation", type=kind)
+        ET.SubElement(ann, tag, dict(attrs))
+    ET.indent(root)
+    return ET.tostring(root, encoding="UTF-8", xml_declaration=True)
 
 
 def parameter_values_ssv(params: ParameterSet) -> bytes:
@@ -49,37 +106,16 @@ def parameter_values_ssv(params: ParameterSet) -> bytes:
     bytes
         UTF-8 XML.
     """
-    ET.register_namespace("ssv", _SSV_NS)
-    ET.register_namespace("ssc", _SSC_NS)
-    v, c = f"{{{_SSV_NS}}}", f"{{{_SSC_NS}}}"
-    root = ET.Element(v + "ParameterSet", {
-        "version": "1.0", "name": params.set_id,
-        "description": f"fitted mode values of {params.set_id} "
+    parameters = [(var.name, var.start, var.unit if UNITS[var.unit] is not None else None,
+                   f"{var.description} [{var.unit}]")
+                  for var in variable_table(params) if var.kind == "parameter"]
+    return ssv_document(
+        params.set_id, f"fitted mode values of {params.set_id} "
                        f"(parameter-set sha256 {params.content_hash()})",
-        "generationTool": f"jointfmu {jointfmu_version()}",
-    })
-    if params.provenance.fitted_by:
-        root.set("author", params.provenance.fitted_by)
-    plist = ET.SubElement(root, v + "Parameters")
-    used = set()
-    for var in variable_table(params):
-        if var.kind != "parameter":
-            continue
-        p = ET.SubElement(plist, v + "Parameter", name=var.name,
-                          description=f"{var.description} [{var.unit}]")
-        real = ET.SubElement(p, v + "Real", value=format_real(var.start))
-        if UNITS[var.unit] is not None:
-            real.set("unit", var.unit)
-            used.add(var.unit)
-    units = ET.SubElement(root, v + "Units")
-    for name in sorted(used):
-        u = ET.SubElement(units, c + "Unit", name=name)
-        ET.SubElement(u, c + "BaseUnit", {k: str(e) for k, e in UNITS[name].items()})
-    ann = ET.SubElement(ET.SubElement(root, v + "Annotations"), c + "Annotation",
-                        type="org.jointfmu.parameterset")
-    ET.SubElement(ann, "ParameterSet", id=params.set_id, contentHash=params.content_hash())
-    ET.indent(root)
-    return ET.tostring(root, encoding="UTF-8", xml_declaration=True)
+        parameters, {k: e for k, e in UNITS.items() if e is not None},
+        author=params.provenance.fitted_by or None,
+        annotation=("org.jointfmu.parameterset", "ParameterSet",
+                    {"id": params.set_id, "contentHash": params.content_hash()}))
 
 
 def write_ssv(params_path: str | os.PathLike, output: str | os.PathLike | None = None,
@@ -104,14 +140,24 @@ _SSV_SCHEMA = "SystemStructureParameterValues.xsd"
 _MODE_PARAM_RE = re.compile(r"^mode\[([1-9][0-9]*)\]\.(?:(f0|zeta)|joint\.(Fs|Kt|chi|beta))$")
 
 
-@lru_cache(maxsize=1)
-def _ssv_schema():
-    """The SSP 1.0 SystemStructureParameterValues schema, as shipped with fmpy (it imports
-    SystemStructureCommon.xsd from the same folder)."""
+@lru_cache(maxsize=None)
+def ssp_schema(file_name: str):
+    """An SSP 1.0 schema (``SystemStructureDescription.xsd``,
+    ``SystemStructureParameterValues.xsd``...) as shipped with fmpy, which keeps the standard's
+    schema files together (each imports ``SystemStructureCommon.xsd`` from the same folder).
+
+    Returns
+    -------
+    lxml.etree.XMLSchema
+    """
     from lxml import etree
     import fmpy.ssp.ssd as ssd
 
-    return etree.XMLSchema(file=str(Path(ssd.__file__).resolve().parent / "schema" / _SSV_SCHEMA))
+    return etree.XMLSchema(file=str(Path(ssd.__file__).resolve().parent / "schema" / file_name))
+
+
+def _ssv_schema():
+    return ssp_schema(_SSV_SCHEMA)
 
 
 def _base_parameter_set(fmu_or_params) -> ParameterSet | None:
@@ -177,7 +223,7 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
         root = etree.fromstring(data, etree.XMLParser(resolve_entities=False, no_network=True))
     except etree.XMLSyntaxError as exc:
         raise InputError(f"{src!r} is not {what}: not well-formed XML ({exc})") from None
-    expected_root = f"{{{_SSV_NS}}}ParameterSet"
+    expected_root = f"{{{SSV_NS}}}ParameterSet"
     if root.tag != expected_root:
         raise InputError(f"{src!r} is not {what}: its root element is {root.tag!r}; allowed is "
                          f"{expected_root!r} (ssv:ParameterSet)")
@@ -202,9 +248,9 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
     problems: list[Problem] = []
     values: dict[str, float] = {}
     overrides: dict[tuple[int, str], float] = {}
-    for p in root.iterfind(f"{{{_SSV_NS}}}Parameters/{{{_SSV_NS}}}Parameter"):
+    for p in root.iterfind(f"{{{SSV_NS}}}Parameters/{{{SSV_NS}}}Parameter"):
         name = p.get("name")
-        typed = [c for c in p if isinstance(c.tag, str) and c.tag.startswith(f"{{{_SSV_NS}}}")]
+        typed = [c for c in p if isinstance(c.tag, str) and c.tag.startswith(f"{{{SSV_NS}}}")]
         kind = typed[0].tag.split("}", 1)[1] if typed else "?"
         raw = typed[0].get("value") if typed else None
         if kind != "Real":
