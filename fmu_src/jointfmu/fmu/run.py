@@ -336,11 +336,15 @@ class _Setup:
         try:
             fmu.instantiate(callbacks=callbacks, loggingOn=True)
             try:
-                for vr, x in self.start:
-                    fmu.setReal([vr], [x])
-                fmu.setupExperiment(startTime=0.0)
-                fmu.enterInitializationMode()
-                fmu.exitInitializationMode()
+                try:
+                    for vr, x in self.start:
+                        fmu.setReal([vr], [x])
+                    fmu.setupExperiment(startTime=0.0)
+                    fmu.enterInitializationMode()
+                    fmu.exitInitializationMode()
+                except FMICallException as exc:
+                    said = "; ".join(m.strip() for m in messages) or "the FMU logged no message"
+                    raise SimulationError(f"the FMU refused to start ({exc}): {said}") from None
                 row_idx = -1
                 points = plan.points()
                 t = next(points)
@@ -376,6 +380,7 @@ def _stopped_text(fmu, exc, t: float, t_next: float, k: int, plan: RunPlan, mess
 
     label = {2: "discarded", 3: "failed (fmi2Error)", 4: "failed (fmi2Fatal)"}.get(
         exc.status, f"failed (status {exc.status})")
+    said = "; ".join(m.strip() for m in messages) or "the FMU logged no message"
     last, why = t, ""
     if exc.status == fmi2Discard:
         # FMI 2.0 sec. 4.2.3: after fmi2Discard the master may ask whether the slave wants the
@@ -388,7 +393,6 @@ def _stopped_text(fmu, exc, t: float, t_next: float, k: int, plan: RunPlan, mess
                    " (the FMU does not ask to end the run; this master ends it)")
         except (FMICallException, OSError, AttributeError):
             why = " (the FMU does not report fmi2Terminated / fmi2LastSuccessfulTime)"
-    said = "; ".join(m.strip() for m in messages) or "the FMU logged no message"
     return (f"the FMU {label} the step from t = {t!r} s to {t_next!r} s{why}: {said}; the run "
             f"stopped at t = {last!r} s after {k} of {plan.n_points - 1} steps")
 
