@@ -1,9 +1,11 @@
 """The demo system as an SSP 1.0 package (``jointfmu export-ssp``).
 
-System Structure and Parameterization (SSP) 1.0, Modelica Association, 2019: an ``.ssp`` file is
-a ZIP archive with the system description ``SystemStructure.ssd`` at its root and the files it
-refers to under ``resources/`` (SSP 1.0 sec. 6).  The package written here holds the system that
-``jointfmu cosim`` runs with ``--components fmu``:
+System Structure and Parameterization (SSP) 1.0, Modelica Association Project SSP, 2019: an
+``.ssp`` file is a ZIP archive with the system description ``SystemStructure.ssd`` at its root
+and the files it refers to under ``resources/``, by URIs relative to the ``.ssd`` (the schema's
+documentation of ``Component/@source`` and ``ParameterBinding/@source``, whose example is
+``resources/MyDemoFMU.fmu``).  The package written here holds the system that ``jointfmu cosim``
+runs with ``--components fmu``:
 
 * ``structure``: the FMU of the build (``jointfmu build``), its fitted mode values bound from
   ``resources/structure.ssv`` (the file ``jointfmu export-ssv`` writes);
@@ -19,7 +21,8 @@ refers to under ``resources/`` (SSP 1.0 sec. 6).  The package written here holds
 The ``.ssd`` is validated against the standard's schema ``SystemStructureDescription.xsd`` and
 each ``.ssv`` against ``SystemStructureParameterValues.xsd`` (the copies shipped with fmpy)
 before anything is written.  The communication step is not part of SSP 1.0 itself: it is given
-in the two tool annotations known to be read (each tool ignores the other's, SSP 1.0 sec. 4.3):
+in the two tool annotations known to be read (``ssc:Annotation`` of a ``type`` named after the
+tool's domain; a tool skips the types it does not know):
 
 * ``com.opensimulationplatform`` on ``DefaultExperiment``: ``osp:Algorithm/osp:FixedStepAlgorithm
   baseStepSize`` (libcosim's SSP reader, ``ssp_parser.cpp``, reads it as its master step);
@@ -63,7 +66,7 @@ _SSD_SCHEMA = "SystemStructureDescription.xsd"
 _SSV_SCHEMA = "SystemStructureParameterValues.xsd"
 
 #: Units of the connectors and damper parameters beyond the FMU's own table, as SI base-unit
-#: exponents (``ssc:BaseUnit``, SSP 1.0 sec. 5.3.3).
+#: exponents (``ssc:BaseUnit``, SystemStructureCommon.xsd).
 _EXTRA_UNITS = {"s": {"s": 1}, "N.s/m": {"kg": 1, "s": -1}}
 
 #: The damper FMU's interface (:mod:`.components`): name -> (kind, unit).
@@ -206,7 +209,7 @@ def system_description(params, case: str, controller_on: bool, settings, *,
         x1, y1, x2, y2 = geometry[comp]
         ET.SubElement(el, d + "ElementGeometry", x1=str(x1), y1=str(y1), x2=str(x2), y2=str(y2))
         if comp in ("structure", "damper"):
-            # SSP 1.0 sec. 5.3.5: a parameter set file, its path relative to the .ssd
+            # a parameter-values file, its URI relative to the .ssd (sourceBase="SSD")
             ET.SubElement(ET.SubElement(el, d + "ParameterBindings"), d + "ParameterBinding",
                           source=f"resources/{comp}.ssv")
     cl = ET.SubElement(system, d + "Connections")
