@@ -255,7 +255,7 @@ def test_libcosim_run_equals_jointfmu_cosim(libcosim_run, cosim_run):
     libcosim steps from t_k = k x 100 000 ns converted to seconds with h = t_{k+1} - t_k, the
     jointfmu loop from t_k = k x 1e-4 with its own h = t_{k+1} - t_k; the two h differ in the
     last bits (about 1e-20 s), which moves the outputs by at most 3.3e-15 of peak (measured,
-    controller on and off).""""
+    controller on and off)."""
     on, lc, _ = libcosim_run
     h = cosim_run
     n = lc.shape[0]
