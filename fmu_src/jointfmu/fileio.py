@@ -18,7 +18,7 @@ from pathlib import Path
 
 from .errors import OutputPathError
 
-__all__ = ["atomic_write", "check_output_path", "publish", "swap_into_place"]
+__all__ = ["atomic_write", "check_output_path", "nearest_folder", "publish", "swap_into_place"]
 
 #: What :func:`check_output_path` is asked to check: a file written atomically beside itself, a
 #: folder replaced as a whole (built beside itself, then renamed), a folder written into.
@@ -68,9 +68,7 @@ def check_output_path(path: str | os.PathLike, kind: str = "file", what: str = "
                 raise OutputPathError(what, text, "it is a folder; a file path is needed here")
             if kind != "file" and not p.is_dir():
                 raise OutputPathError(what, text, "it is a file; a folder path is needed here")
-        folder = p if kind == "into" and p.is_dir() else p.parent
-        while not os.path.lexists(folder) and folder != folder.parent:
-            folder = folder.parent
+        folder = p if kind == "into" and p.is_dir() else nearest_folder(p)
         if not folder.is_dir():
             raise OutputPathError(what, text, f"{str(folder)!r} is a file, not a folder"
                                   if folder.is_file() else f"{str(folder)!r} is not a folder")
@@ -82,6 +80,15 @@ def check_output_path(path: str | os.PathLike, kind: str = "file", what: str = "
         raise OutputPathError(what, text, f"folder {str(folder)!r} is not writable "
                                           "(permission denied or a read-only file system)")
     return p
+
+
+def nearest_folder(path: str | os.PathLike) -> Path:
+    """The nearest existing entry at or above ``path``'s parent: the folder a writer of
+    ``path`` creates its temporary file or new folders in (it may turn out to be a file)."""
+    folder = Path(path).parent
+    while not os.path.lexists(folder) and folder != folder.parent:
+        folder = folder.parent
+    return folder
 
 
 def publish(tmp: str | os.PathLike, dest: str | os.PathLike) -> None:

@@ -136,7 +136,7 @@ def system_description(params, case: str, controller_on: bool, settings, *,
     """
     from ..fmu.bundle import jointfmu_version
     from ..fmu.build import format_real
-    from ..fmu.ssv import SSC_NS
+    from ..fmu.ssv import SSC_NS, units_element
     from ..fmu.variables import variable_table
     from .system import LOAD_CASES
 
@@ -223,10 +223,7 @@ def system_description(params, case: str, controller_on: bool, settings, *,
     ET.SubElement(info, m + "FixedStepMaster", description="oms-ma", stepSize=step,
                   absoluteTolerance="0.0001", relativeTolerance="0.0001")
     if used_units:
-        ulist = ET.SubElement(root, d + "Units")
-        for name in sorted(used_units):
-            u = ET.SubElement(ulist, c + "Unit", name=name)
-            ET.SubElement(u, c + "BaseUnit", {k: str(e) for k, e in _units_of(name).items()})
+        units_element(root, d + "Units", {u: _units_of(u) for u in used_units})
     de = ET.SubElement(root, d + "DefaultExperiment", startTime="0", stopTime=format_real(stop))
     osp = ET.SubElement(ET.SubElement(de, d + "Annotations"), c + "Annotation",
                         type="com.opensimulationplatform")

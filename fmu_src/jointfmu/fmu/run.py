@@ -18,7 +18,7 @@ from decimal import Decimal
 from pathlib import Path
 from typing import Callable, Iterator, Mapping, Sequence
 
-from ..fileio import atomic_write, check_output_path
+from ..fileio import atomic_write, check_output_path, nearest_folder
 from ..errors import InputError, JointFmuWarning, SimulationError
 
 __all__ = [
@@ -298,9 +298,7 @@ class _Setup:
                              "larger --step, a smaller --stop-time, or a larger --max-rows")
         if output is not None:
             need = rows * cols * BYTES_PER_VALUE
-            folder = Path(output).parent
-            while not folder.exists() and folder != folder.parent:
-                folder = folder.parent
+            folder = nearest_folder(output)
             free = shutil.disk_usage(folder).free
             if need > free:
                 raise InputError(f"{what}, up to {_bytes_text(need)} of CSV "
@@ -359,6 +357,7 @@ class _Setup:
                     if k + 1 == plan.n_points:
                         break
                     t_next = next(points)
+                    messages.clear()              # keep what the FMU says about this step
                     try:
                         fmu.doStep(currentCommunicationPoint=t, communicationStepSize=t_next - t)
                     except FMICallException as exc:

@@ -29,6 +29,7 @@ __all__ = [
     "parameter_values_ssv",
     "ssp_schema",
     "ssv_document",
+    "units_element",
     "write_ssv",
     "read_parameter_values",
     "with_parameter_values",
@@ -37,6 +38,19 @@ __all__ = [
 # ----------------------------------------------------------------------- SSP parameter values
 SSV_NS = "http://ssp-standard.org/SSP1/SystemStructureParameterValues"
 SSC_NS = "http://ssp-standard.org/SSP1/SystemStructureCommon"
+
+
+def units_element(parent: ET.Element, tag: str, units: Mapping[str, Mapping[str, int]]
+                  ) -> ET.Element:
+    """Append the SSP 1.0 unit definitions (``ssc:Unit`` with its ``ssc:BaseUnit`` exponents,
+    SystemStructureCommon.xsd ``TUnits``) of ``units`` to ``parent`` as element ``tag``
+    (``ssv:Units`` or ``ssd:Units``), sorted by name."""
+    c = f"{{{SSC_NS}}}"
+    ulist = ET.SubElement(parent, tag)
+    for name in sorted(units):
+        u = ET.SubElement(ulist, c + "Unit", name=name)
+        ET.SubElement(u, c + "BaseUnit", {k: str(e) for k, e in units[name].items()})
+    return ulist
 
 
 def ssv_document(name: str, description: str,
@@ -80,10 +94,7 @@ def ssv_document(name: str, description: str,
             real.set("unit", unit)
             used.add(unit)
     if used:
-        ulist = ET.SubElement(root, v + "Units")
-        for uname in sorted(used):
-            u = ET.SubElement(ulist, c + "Unit", name=uname)
-            ET.SubElement(u, c + "BaseUnit", {k: str(e) for k, e in units[uname].items()})
+        units_element(root, v + "Units", {u: units[u] for u in used})
     if annotation is not None:
         kind, tag, attrs = annotation
         ann = ET.SubElement(ET.SubElement(root, v + "Annotations"), c + "Annotation", type=kind)
