@@ -749,7 +749,7 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     # 6. system page
     step("page")
     pp = write_system_page(table, sys_dir, sys_dir / "histories",
-                           report_href="../report/index.html" if "report" in paths else None,
+                           report_href="../report/index.html",
                            linear_rows=lin_rows)
     paths.update({f"system:{k}": v for k, v in pp.items()})
     done("page")
