@@ -25,6 +25,7 @@ import json
 import tempfile
 import time
 from contextlib import nullcontext
+from importlib import resources
 from dataclasses import replace
 from pathlib import Path
 from typing import Sequence
@@ -32,9 +33,9 @@ from typing import Sequence
 from ..fileio import atomic_write, check_output_path
 from ..errors import InputError, ParameterError
 
-__all__ = ["CAUTION", "EXAMPLE_FILES", "find_examples", "run_demo", "write_system_page",
-           "add_system_options", "system_settings", "add_cosim_args", "cmd_cosim",
-           "add_sweep_args", "cmd_sweep", "add_demo_args", "cmd_demo"]
+__all__ = ["CAUTION", "EXAMPLE_FILES", "examples_folder", "find_examples", "run_demo",
+           "write_system_page", "add_system_options", "system_settings", "add_cosim_args",
+           "cmd_cosim", "add_sweep_args", "cmd_sweep", "add_demo_args", "cmd_demo"]
 
 #: Printed by the demo and written on its pages.
 CAUTION = ("A fitted model is no substitute for qualification testing; defer to the applicable "
@@ -44,27 +45,40 @@ CAUTION = ("A fitted model is no substitute for qualification testing; defer to 
 EXAMPLE_FILES = ("tray_nominal.toml", "tray_undertorqued.toml", "tray_worn.toml")
 
 
+def examples_folder() -> Path:
+    """The folder of the shipped examples inside the installed package (``jointfmu/examples``).
+
+    Found with :mod:`importlib.resources`, so it works from a wheel installed anywhere, whatever
+    the current folder.  (In the source tree the top-level ``examples`` is a link to it.)
+
+    Raises
+    ------
+    InputError
+        When the package was installed without them or is not on the file system (a zip).
+    """
+    top = __package__.rpartition(".")[0]  # the jointfmu package
+    folder = resources.files(top).joinpath("examples")
+    if not isinstance(folder, Path) or not folder.is_dir():
+        raise InputError(f"the shipped examples ({top}/examples) are not in the installed package "
+                         f"at {folder}; reinstall jointfmu, or give parameter files with "
+                         "--params FILE ...")
+    return folder
+
+
 def find_examples(folder=None) -> list[Path]:
     """Paths of the three example parameter files.
 
     Parameters
     ----------
     folder : path-like, optional
-        Folder holding ``tray_*.toml``; default the ``examples/`` folder of the source tree.
+        Folder holding ``tray_*.toml``; default the package's own (:func:`examples_folder`).
 
     Raises
     ------
     InputError
         When the folder or a file is missing.
     """
-    if folder is None:
-        here = Path(__file__).resolve()
-        candidates = [d / "examples" for d in here.parents[:4]] + [Path.cwd() / "examples"]
-        folder = next((c for c in candidates if (c / EXAMPLE_FILES[0]).is_file()), None)
-        if folder is None:
-            raise InputError("the shipped examples (examples/tray_*.toml) were not found next to "
-                             "the package or in ./examples; give them with --params FILE ...")
-    folder = Path(folder)
+    folder = examples_folder() if folder is None else Path(folder)
     files = [folder / f for f in EXAMPLE_FILES]
     missing = [str(f) for f in files if not f.is_file()]
     if missing:
