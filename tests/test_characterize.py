@@ -284,7 +284,7 @@ def test_report_is_complete_and_atomic(tmp_path, monkeypatch):
         assert needle in text
     import re
 
-    pngs = re.findall(r"src='([^']+\.png)'", text)
+    pngs = re.findall(r'src="([^"]+\.png)"', text)
     assert len(pngs) == 5
     for name in pngs:
         assert (out / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

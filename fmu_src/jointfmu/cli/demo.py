@@ -11,7 +11,7 @@ Steps (each is also a command of its own):
    matters: per build, the sine-equivalent modal amplitudes (sqrt(2) x RMS of each mode) of the
    load case with the largest RMS tip acceleration, controller off;
 6. system page           summary tables and plots of the sweep and of the linear models
-   (``system/system.html``).
+   (``system/system.html``, :mod:`..report.system`).
 
 The example data are invented (see examples/README.md).  A fitted model is no substitute for
 qualification testing; defer to the applicable codes, standards and licensed engineering
@@ -20,7 +20,6 @@ practice.
 from __future__ import annotations
 
 import argparse
-import html
 import json
 import tempfile
 import time
@@ -30,16 +29,13 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Sequence
 
-from ..fileio import atomic_write, check_output_path
+from ..analysis.linear import CAUTION
 from ..errors import InputError, ParameterError
+from ..fileio import check_output_path
 
 __all__ = ["CAUTION", "EXAMPLE_FILES", "examples_folder", "find_examples", "run_demo",
-           "write_system_page", "add_system_options", "system_settings", "add_cosim_args",
-           "cmd_cosim", "add_sweep_args", "cmd_sweep", "add_demo_args", "cmd_demo"]
-
-#: Printed by the demo and written on its pages.
-CAUTION = ("A fitted model is no substitute for qualification testing; defer to the applicable "
-           "codes, standards and licensed engineering practice.")
+           "add_system_options", "system_settings", "add_cosim_args", "cmd_cosim",
+           "add_sweep_args", "cmd_sweep", "add_demo_args", "cmd_demo"]
 
 #: The shipped example builds, in the order they are compared.
 EXAMPLE_FILES = ("tray_nominal.toml", "tray_undertorqued.toml", "tray_worn.toml")
@@ -87,18 +83,6 @@ def find_examples(folder=None) -> list[Path]:
 
 
 # ------------------------------------------------------------------------------ helpers
-def _atomic_text(path: Path, text: str) -> Path:
-    with atomic_write(path, "w") as f:
-        f.write(text)
-    return path
-
-
-def _atomic_figure(fig, path: Path) -> Path:
-    with atomic_write(path, "wb") as f:
-        fig.savefig(f, format="png", dpi=100)
-    return path
-
-
 def system_settings(args) -> "object":
     """The :class:`.system.SystemSettings` of the options :func:`add_system_options` declared."""
     from ..cosim.system import ControllerSettings, SystemSettings
@@ -307,225 +291,6 @@ def _text_table(df, keys=None) -> str:
     return "\n".join(lines)
 
 
-# ------------------------------------------------------------------------- system page
-def write_system_page(table, out_dir, history_dir=None, title="System co-simulation",
-                      report_href: str | None = None, linear_rows=None) -> dict:
-    """Summary table and plots of a system sweep: ``system.html`` and PNGs in ``out_dir``.
-
-    Parameters
-    ----------
-    table : pandas.DataFrame
-        Rows of the sweep (:func:`.system.run_case` columns).
-    out_dir : path-like
-    history_dir : path-like, optional
-        Folder of the runs' history files, for the time-history plot.
-    report_href : str, optional
-        Relative link to the characterization report of the same builds.
-    linear_rows : list of dict, optional
-        One per build and mode of the exported equivalent-linear models: ``build``, ``case``,
-        ``folder``, ``label``, ``modal_amplitude``, ``amplitude_over_phimax``,
-        ``frequency_hz``, ``zeta``.
-
-    Returns
-    -------
-    dict of str to Path
-        ``page``, ``summary_csv`` and each figure.
-    """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    import numpy as np
-    import pandas as pd
-
-    from ..cosim.system import G0, LOAD_CASES, ControllerSettings
-
-    out = Path(out_dir)
-    df = table.sort_values(["build", "case", "controller"]).reset_index(drop=True)
-    builds = list(dict.fromkeys(df["build"]))
-    cases = [c for c in LOAD_CASES if c in set(df["case"])]
-    paths: dict[str, Path] = {}
-
-    # 1. tip RMS and peak per case, build, controller
-    fig, axes = plt.subplots(1, len(cases), figsize=(4.2 * len(cases), 3.6), squeeze=False)
-    w = 0.38
-    for ax, case in zip(axes[0], cases):
-        x = np.arange(len(builds))
-        for j, on in enumerate((False, True)):
-            sel = df[(df["case"] == case) & (df["controller"] == on)].set_index("build")
-            vals = [sel["tip_acc_rms_g"].get(b, np.nan) for b in builds]
-            peaks = [sel["tip_acc_peak_g"].get(b, np.nan) for b in builds]
-            ax.bar(x + (j - 0.5) * w, vals, w, label=f"controller {'on' if on else 'off'} (RMS)",
-                   color=("tab:red", "tab:blue")[j])
-            ax.plot(x + (j - 0.5) * w, peaks, "v", color="k", ms=5,
-                    label="peak" if j == 0 else None)
-        ax.set_xticks(x, builds, fontsize=8)
-        ax.set_title(case)
-        ax.set_ylabel("tip acceleration [g]")
-        ax.grid(axis="y", alpha=0.3)
-    axes[0][0].legend(fontsize=7)
-    fig.tight_layout()
-    paths["fig_tip"] = _atomic_figure(fig, out / "system_tip_acceleration.png")
-    plt.close(fig)
-
-    # 2. joint energy and interface force
-    fig, axes = plt.subplots(1, 2, figsize=(10, 3.6))
-    labels = [f"{b}\n{c}" for b in builds for c in cases]
-    x = np.arange(len(labels))
-    for j, on in enumerate((False, True)):
-        sel = df[df["controller"] == on].set_index(["build", "case"])
-        e = [sel["energy_joint"].get((b, c), np.nan) for b in builds for c in cases]
-        f = [sel["base_force_peak"].get((b, c), np.nan) for b in builds for c in cases]
-        axes[0].bar(x + (j - 0.5) * w, e, w, color=("tab:red", "tab:blue")[j],
-                    label=f"controller {'on' if on else 'off'}")
-        axes[1].bar(x + (j - 0.5) * w, f, w, color=("tab:red", "tab:blue")[j])
-    for ax, yl in zip(axes, ("joint energy dissipated [J]", "peak interface force [N]")):
-        ax.set_xticks(x, labels, fontsize=6, rotation=90)
-        ax.set_ylabel(yl)
-        ax.grid(axis="y", alpha=0.3)
-    axes[0].legend(fontsize=7)
-    fig.tight_layout()
-    paths["fig_energy"] = _atomic_figure(fig, out / "system_joint_energy_force.png")
-    plt.close(fig)
-
-    # 3. equivalent linear vs nonlinear
-    fig, ax = plt.subplots(figsize=(4.8, 4.2))
-    for on, mk in ((False, "o"), (True, "s")):
-        sel = df[df["controller"] == on]
-        ax.plot(sel["tip_acc_rms_g"], sel["lin_tip_acc_rms"] / G0, mk, mfc="none",
-                label=f"controller {'on' if on else 'off'}")
-    lim = [0, 1.1 * float(np.nanmax(np.r_[df["tip_acc_rms_g"], df["lin_tip_acc_rms"] / G0]))]
-    ax.plot(lim, lim, "k--", lw=0.8, label="equal")
-    ax.set_xlabel("nonlinear (Iwan) tip RMS [g]")
-    ax.set_ylabel("equivalent-linear tip RMS [g]")
-    ax.legend(fontsize=7)
-    ax.grid(alpha=0.3)
-    fig.tight_layout()
-    paths["fig_linear"] = _atomic_figure(fig, out / "system_linear_vs_nonlinear.png")
-    plt.close(fig)
-
-    # 4. time histories of the worst case (largest tip RMS, controller off), every build
-    worst_case = None
-    if history_dir is not None and "history" in df:
-        off = df[df["controller"] == False]  # noqa: E712
-        if len(off):
-            worst_case = off.loc[off["tip_acc_rms"].idxmax(), "case"]
-            fig, axes = plt.subplots(len(builds), 1, figsize=(9, 2.3 * len(builds)),
-                                     sharex=True, squeeze=False)
-            for ax, b in zip(axes[:, 0], builds):
-                for on, col in ((False, "tab:red"), (True, "tab:blue")):
-                    sel = df[(df["build"] == b) & (df["case"] == worst_case)
-                             & (df["controller"] == on)]
-                    if not len(sel):
-                        continue
-                    hp = Path(history_dir) / str(sel.iloc[0]["history"])
-                    if hp.is_file():
-                        h = pd.read_parquet(hp, columns=["time", "point.tip.a"])
-                        ax.plot(h["time"], h["point.tip.a"] / G0, color=col, lw=0.6,
-                                label=f"controller {'on' if on else 'off'}")
-                ax.set_ylabel(f"{b}\ntip a [g]", fontsize=8)
-                ax.grid(alpha=0.3)
-            axes[0, 0].set_title(f"{worst_case}: tip acceleration")
-            axes[0, 0].legend(fontsize=7, loc="upper right")
-            axes[-1, 0].set_xlabel("time [s]")
-            fig.tight_layout()
-            paths["fig_history"] = _atomic_figure(fig, out / "system_worst_case_history.png")
-            plt.close(fig)
-
-    # summary CSV (small, for spreadsheets) beside the Parquet table
-    cols = ["key", "build", "case", "controller", "duration", "tip_acc_peak_g", "tip_acc_rms_g",
-            "base_force_peak", "energy_joint", "energy_viscous", "energy_input",
-            "actuator_force_peak", "actuator_saturated", "lin_tip_acc_rms", "lin_rms_diff",
-            "lin_peak_diff", "lin_waveform_err", "wall_time"]
-    summary = df[[c for c in cols if c in df]]
-    paths["summary_csv"] = _atomic_text(out / "system_summary.csv", summary.to_csv(index=False))
-
-    # the page
-    c = ControllerSettings()
-    e = html.escape
-    rows = []
-    for _, r in df.iterrows():
-        rows.append(
-            "<tr>" + "".join(f"<td>{e(str(v))}</td>" for v in (
-                r["build"], r["case"], "on" if r["controller"] else "off",
-                f"{r['duration']:g}", f"{r['tip_acc_peak_g']:.2f}", f"{r['tip_acc_rms_g']:.2f}",
-                f"{r['base_force_peak']:.1f}", f"{r['energy_joint']:.4f}",
-                f"{r['actuator_force_peak']:.1f}", f"{100 * r['actuator_saturated']:.1f}",
-                f"{100 * r['lin_rms_diff']:+.1f}", f"{100 * r['lin_peak_diff']:+.1f}")) + "</tr>")
-    # controller benefit per build and case
-    benefit = []
-    for b in builds:
-        for cs in cases:
-            a = df[(df["build"] == b) & (df["case"] == cs)].set_index("controller")
-            if False in a.index and True in a.index:
-                benefit.append(f"<tr><td>{e(b)}</td><td>{e(cs)}</td><td>"
-                               f"{100 * (a.loc[True, 'tip_acc_rms'] / a.loc[False, 'tip_acc_rms'] - 1):+.1f}"
-                               f"</td><td>{100 * (a.loc[True, 'base_force_peak'] / a.loc[False, 'base_force_peak'] - 1):+.1f}"
-                               f"</td></tr>")
-    figs = "".join(f'<p><img src="{e(p.name)}" alt="{e(k)}"></p>'
-                   for k, p in paths.items() if k.startswith("fig_"))
-    report_link = (f'<p>Characterization of the same builds: <a href="{e(report_href)}">'
-                   'report</a>.</p>' if report_href else "")
-    lin_html = ""
-    if linear_rows:
-        lin_html = ("<h2>Equivalent-linear models for the controls team</h2>"
-                    "<p>Per build, at the sine-equivalent modal amplitudes (&radic;2 &times; RMS) "
-                    "of its worst load case (largest tip RMS, controller off); state space in "
-                    "each folder (model.npz, A.csv..D.csv, metadata.json). Valid near that "
-                    "amplitude and that kind of load only.</p>"
-                    '<table id="linear-models"><tr><th>build</th><th>load case</th><th>mode</th>'
-                    "<th>modal amplitude [m&radic;kg]</th><th>A / &phi;<sub>max</sub></th>"
-                    "<th>frequency [Hz]</th><th>&zeta;</th><th>folder</th></tr>"
-                    + "".join(
-                        f"<tr><td>{e(str(r['build']))}</td><td>{e(str(r['case']))}</td>"
-                        f"<td>{e(str(r.get('label', '')))}</td>"
-                        f"<td>{float(r['modal_amplitude']):.3g}</td>"
-                        f"<td>{float(r['amplitude_over_phimax']):.3f}</td>"
-                        f"<td>{float(r['frequency_hz']):.2f}</td><td>{float(r['zeta']):.4f}</td>"
-                        f"<td><code>{e(str(r['folder']))}</code></td></tr>"
-                        for r in linear_rows) + "</table>")
-    case_rows = "".join(f"<tr><td>{e(lc.name)}</td><td>{e(lc.description)}</td></tr>"
-                        for lc in LOAD_CASES.values() if lc.name in cases)
-    text = f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8"><title>{e(title)}</title>
-<style>body{{font-family:sans-serif;max-width:1100px;margin:2em auto}}
-table{{border-collapse:collapse;font-size:90%}}td,th{{border:1px solid #bbb;padding:2px 6px}}
-.caution{{border:2px solid #c00;padding:0.6em;background:#fee}}</style></head><body>
-<h1>{e(title)}</h1>
-<p class="caution"><b>Caution.</b> {e(CAUTION)} The builds, load cases and controller are
-invented demo data.</p>
-{report_link}
-<h2>The system</h2>
-<p>Each tray build is its FMI 2.0 co-simulation FMU, stepped with fmpy in a master loop that
-exchanges values every communication step with a loads model (base acceleration of the chassis
-under the bracket) and an active damper at <code>{e(c.point)}</code>: force
-&minus;g&middot;v from the relative velocity sensed there, first-order actuator lag, force limit
-(defaults g = {c.gain:g} N s/m, &tau; = {c.tau * 1e3:g} ms, {c.force_limit:g} N).
-Interface force is the force through the bolted joints onto the bracket. "lin" columns: the
-equivalent-linear model at the run's own sine-equivalent modal amplitudes (&radic;2 &times; RMS),
-run through the same loop; the difference is in tip RMS and peak acceleration.</p>
-<table><tr><th>load case</th><th>what it is</th></tr>{case_rows}</table>
-<h2>Results</h2>
-<table id="system-results"><tr><th>build</th><th>case</th><th>controller</th><th>duration [s]</th>
-<th>tip peak [g]</th><th>tip RMS [g]</th><th>interface force peak [N]</th>
-<th>joint energy [J]</th><th>actuator peak [N]</th><th>at limit [%]</th>
-<th>lin &minus; nonlin tip RMS [%]</th><th>lin &minus; nonlin tip peak [%]</th></tr>
-{''.join(rows)}</table>
-<h2>What the controller buys</h2>
-<table id="controller-benefit"><tr><th>build</th><th>case</th><th>tip RMS change [%]</th>
-<th>interface force peak change [%]</th></tr>{''.join(benefit)}</table>
-{lin_html}
-<h2>Plots</h2>
-{figs}
-<p>Worst case (largest tip RMS, controller off): {e(str(worst_case))}.
-Full table: <code>results.parquet</code>; summary: <code>{e(paths['summary_csv'].name)}</code>.</p>
-<p class="caution">{e(CAUTION)}</p>
-</body></html>
-"""
-    paths["page"] = _atomic_text(out / "system.html", text)
-    return paths
-
-
 def _three_fmu_check(build, table, settings, quick: bool, fmu_dir: Path) -> dict:
     """Build a loads FMU per load case and the controller FMU; rerun one sweep case (first
     build, curb_strike, controller on) as a system of three FMUs and compare with the sweep."""
@@ -677,6 +442,7 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     from ..params import load_parameter_set
     from ..cosim.sweep import dask_client, raise_failures, run_tasks
     from ..cosim.system import SystemSettings
+    from ..report.system import write_system_page
 
     out = Path(out_dir)
     t_all = time.perf_counter()

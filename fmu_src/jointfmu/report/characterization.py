@@ -12,7 +12,6 @@ standards and licensed engineering practice.
 """
 from __future__ import annotations
 
-import html
 import math
 import os
 import shutil
@@ -29,6 +28,7 @@ from ..analysis.summary import BuildSummary, as_parameter_set, summarize_build
 from ..errors import InputError
 from ..analysis.linear import CAUTION, equivalent_linear
 from ..fileio import check_output_path, swap_into_place
+from .render import Cell, Table, render_page
 
 __all__ = ["write_report", "BuildSummary", "summarize_build", "FmuRunner", "get_runner",
            "DEFAULT_REPORT_DIR"]
@@ -280,12 +280,8 @@ def _fig_ringdown(summaries, out):
 
 
 # ------------------------------------------------------------------------------------------------
-# tables and page
+# tables and page (laid out by templates/characterization.html)
 # ------------------------------------------------------------------------------------------------
-def _e(x) -> str:
-    return html.escape(str(x))
-
-
 def _num(x, digits=3) -> str:
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "–"
@@ -297,41 +293,34 @@ def _length(x_m: float) -> str:
     return f"{_num(1e3 * x_m)} mm" if x_m >= 1e-3 else f"{_num(1e6 * x_m)} µm"
 
 
-def _table(head, rows, cls="") -> str:
-    h = "".join(f"<th>{c}</th>" for c in head)
-    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in r) + "</tr>" for r in rows)
-    return f'<table class="{cls}"><thead><tr>{h}</tr></thead><tbody>{body}</tbody></table>'
-
-
-def _params_table(s: BuildSummary) -> str:
+def _params_table(s: BuildSummary) -> Table:
     rows = []
     for i, m in enumerate(s.params.modes):
         j = m.joint
         cv = s.curves[i]
-        rows.append([f"{i + 1} {_e(m.label)}", _num(m.f0, 4), _num(100 * m.zeta), _num(j.Fs),
+        rows.append([f"{i + 1} {m.label}", _num(m.f0, 4), _num(100 * m.zeta), _num(j.Fs),
                      _num(j.Kt), _num(j.chi), _num(j.beta), _num(1e6 * cv.phimax),
                      _num(cv.f_macro, 4)])
-    return _table(["mode", "f0 [Hz]", "ζ [%]", "Fs [N/√kg]", "Kt [1/s²]", "χ", "β",
-                   "φmax [µm·√kg]", "f macro-slip [Hz]"], rows)
+    return Table(["mode", "f0 [Hz]", "ζ [%]", "Fs [N/√kg]", "Kt [1/s²]", "χ", "β",
+                  "φmax [µm·√kg]", "f macro-slip [Hz]"], rows)
 
 
-def _onset_table(s: BuildSummary) -> str:
+def _onset_table(s: BuildSummary) -> Table:
     pts = s.params.output_points
     rows = []
     for i, m in enumerate(s.params.modes):
         cv = s.curves[i]
         w1 = _TWO_PI * float(C.mode_curves(m, np.array([cv.phimax])).freq_1[0])
-        cells = [f"{i + 1} {_e(m.label)}"]
+        cells = [f"{i + 1} {m.label}"]
         for p in pts:
             phi = abs(p.shape[i])
             cells.append(f"{_length(phi * cv.phimax)} / {_num(w1**2 * phi * cv.phimax / _G)} g"
                          if phi else "–")
         rows.append(cells)
-    head = ["mode"] + [f"'{_e(p.label)}': x / a" for p in pts]
-    return _table(head, rows)
+    return Table(["mode"] + [f"'{p.label}': x / a" for p in pts], rows)
 
 
-def _amplitude_table(s: BuildSummary) -> str:
+def _amplitude_table(s: BuildSummary) -> Table:
     rows = []
     for i, m in enumerate(s.params.modes):
         cv = s.curves[i]
@@ -339,16 +328,16 @@ def _amplitude_table(s: BuildSummary) -> str:
         at = C.mode_curves(m, A)
         z_h, _ = s.estimates[i].at(A)
         drop = 100 * (1 - at.freq_1[-1] / m.f0)
-        rows.append([f"{i + 1} {_e(m.label)}"]
+        rows.append([f"{i + 1} {m.label}"]
                     + [_num(100 * v) for v in at.zeta_rd] + [_num(100 * v) for v in at.zeta_eq]
                     + [_num(100 * v) for v in z_h] + [_num(drop)])
     r = [f"{v:g}" for v in _RATIOS]
     head = (["mode"] + [f"ζ_rd [%] at {x} φmax" for x in r] + [f"ζ_eq [%] at {x} φmax" for x in r]
             + [f"ζ Hilbert [%] at {x} φmax" for x in r] + ["frequency drop at φmax [%]"])
-    return _table(head, rows, "wide")
+    return Table(head, rows, cls="wide")
 
 
-def _compare_table(summaries) -> str:
+def _compare_table(summaries) -> Table:
     rows = []
     n = max(s.params.n_modes for s in summaries)
     for i in range(n):
@@ -360,14 +349,21 @@ def _compare_table(summaries) -> str:
             lab, phi = s.ref_points[i]
             at = C.mode_curves(m, np.array([0.5 * cv.phimax, cv.phimax]))
             w1 = _TWO_PI * at.freq_1[1]
-            onset = (f"{_num(w1**2 * phi * cv.phimax / _G)} g at '{_e(lab)}'" if lab
+            onset = (f"{_num(w1**2 * phi * cv.phimax / _G)} g at '{lab}'" if lab
                      else f"{_num(1e6 * cv.phimax)} µm·√kg (modal)")
-            rows.append([f"{i + 1} {_e(m.label)}" if k == 0 else "",
-                         f'<span class="sw" style="background:{_color(k)}"></span>{_e(s.params.set_id)}',
+            rows.append([f"{i + 1} {m.label}" if k == 0 else "",
+                         Cell(s.params.set_id, swatch=_color(k)),
                          _num(m.f0, 4), _num(100 * at.zeta_rd[0]), onset,
                          _num(100 * (1 - at.freq_1[1] / m.f0))])
-    return _table(["mode", "build", "f0 [Hz]", "ζ_rd at 0.5 φmax [%]",
-                   "macro-slip onset (acceleration amplitude)", "frequency drop at onset [%]"], rows)
+    return Table(["mode", "build", "f0 [Hz]", "ζ_rd at 0.5 φmax [%]",
+                  "macro-slip onset (acceleration amplitude)", "frequency drop at onset [%]"], rows)
+
+
+def _identity_table(summaries) -> Table:
+    return Table(["", "parameter set", "content hash (SHA-256)", "file", "fitted", "source data"],
+                 [[Cell(swatch=_color(k)), s.params.set_id, Cell(s.params.content_hash(), code=True),
+                   str(s.params.source), s.params.provenance.date, s.params.provenance.source_data]
+                  for k, s in enumerate(summaries)])
 
 
 def _color(k):
@@ -377,75 +373,15 @@ def _color(k):
     return to_hex(colormaps["tab10"](k % 10))
 
 
-_CSS = """
-body{font-family:system-ui,-apple-system,Segoe UI,Helvetica,Arial,sans-serif;max-width:1180px;
-margin:2em auto;padding:0 1em;color:#222;line-height:1.45}
-h1{font-size:1.6em;margin-bottom:.2em}h2{margin-top:1.8em;border-bottom:1px solid #ccc}
-.caution{border:2px solid #b45309;background:#fff7ed;padding:.7em 1em;margin:1em 0;font-weight:600}
-table{border-collapse:collapse;margin:.6em 0 1.2em 0;font-size:.88em}
-th,td{border:1px solid #ccc;padding:.25em .55em;text-align:right}th{background:#f3f4f6}
-td:first-child,th:first-child{text-align:left}table.wide{font-size:.8em}
-img{max-width:100%;border:1px solid #ddd;margin:.4em 0}
-.meta{color:#555;font-size:.9em}.sw{display:inline-block;width:.9em;height:.9em;margin-right:.4em;
-vertical-align:-.1em}code{background:#f3f4f6;padding:0 .2em}
-"""
-
-
 def _page(summaries, figs, created, version) -> str:
-    ids = _table(["", "parameter set", "content hash (SHA-256)", "file", "fitted", "source data"],
-                 [[f'<span class="sw" style="background:{_color(k)}"></span>',
-                   _e(s.params.set_id), f"<code>{_e(s.params.content_hash())}</code>",
-                   _e(s.params.source), _e(s.params.provenance.date),
-                   _e(s.params.provenance.source_data)] for k, s in enumerate(summaries)])
-    runners = sorted({s.ringdown.source for s in summaries})
-    parts = [
-        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
-        f"<title>jointfmu characterization: {_e(', '.join(s.params.set_id for s in summaries))}</title>",
-        f"<style>{_CSS}</style></head><body>",
-        f"<h1>Characterization of {len(summaries)} build{'s' if len(summaries) > 1 else ''}</h1>",
-        f"<p class='meta'>Written {created} by jointfmu {version}. Ring-downs simulated by: "
-        f"{_e(', '.join(runners))}.</p>",
-        f"<div class='caution'>{_e(CAUTION)}</div>",
-        "<h2>Builds</h2>", ids,
-        "<h2>Comparison</h2>", _compare_table(summaries),
-        "<p>Acceleration amplitude at the onset of macro-slip: each mode alone, harmonic at its "
-        "first-harmonic frequency, at the output point where it moves most "
-        "(|φ| ω₁² φmax). Frequency drop: 1 − f₁(φmax)/f0.</p>",
-        "<h2>Damping vs amplitude</h2>",
-        f"<img src='{figs['damping']}' alt='damping ratio vs amplitude per mode'>",
-        "<p><b>ζ_rd</b>: what a free-decay (ring-down) analysis measures, −(d ln A/dt)/ω₁ "
-        "(derived for jointfmu from the Masing loop and the tangent stiffness). <b>ζ_eq</b>: energy-equivalent damping at the "
-        "first-harmonic frequency, the value the equivalent linear models use for steady-state "
-        "harmonic response (<code>jointfmu linearize</code>). Markers: Hilbert-transform estimate "
-        "(Feldman, MSSP 8(2):119-127, 1994) from the simulated ring-down; it follows ζ_rd in "
-        "micro-slip (tests: within 0.5 %), and lags it where the decay is fast (macro-slip, the "
-        "first periods).</p>",
-        "<h2>Frequency vs amplitude</h2>",
-        f"<img src='{figs['frequency']}' alt='frequency vs amplitude per mode'>",
-        "<h2>Dissipation per cycle</h2>",
-        f"<img src='{figs['dissipation']}' alt='dissipation per cycle vs amplitude per mode'>",
-        "<p>Closed form: Segalman, “A four-parameter Iwan model for lap-type joints”, J. Appl. "
-        "Mech. 72(5):752-760, 2005; markers: the exact joint element cycled once at each "
-        "amplitude. Micro-slip slope 3+χ on log-log axes; in macro-slip D grows linearly "
-        "(4 Fs per unit amplitude).</p>",
-        "<h2>Ring-down: Iwan model vs linear model</h2>",
-        f"<img src='{figs['ringdown']}' alt='ring-down acceleration, nonlinear vs linear'>",
-        "<p>Mode 1 struck alone by a short modal force pulse to about twice its macro-slip onset; "
-        "the linear model has the low-amplitude frequency and damping (what a low-level test "
-        "gives): it overstates the response after a strong hit and runs ahead in phase.</p>",
-    ]
-    for k, s in enumerate(summaries):
-        parts += [f"<h2><span class='sw' style='background:{_color(k)}'></span>"
-                  f"{_e(s.params.set_id)}</h2>",
-                  f"<p>{_e(s.params.description)}</p>",
-                  "<h3>Parameters (mass-normalized modal coordinates)</h3>", _params_table(s),
-                  "<h3>Onset of macro-slip at the output points</h3>", _onset_table(s),
-                  "<p>Displacement relative to the base, x = |φ| φmax, and acceleration "
-                  "a = |φ| ω₁² φmax, each mode alone.</p>",
-                  "<h3>Damping and frequency at a few amplitudes</h3>", _amplitude_table(s),
-                  f"<img src='{figs['loops'][k]}' alt='hysteresis loops of {_e(s.params.set_id)}'>"]
-    parts += [f"<div class='caution'>{_e(CAUTION)}</div>", "</body></html>\n"]
-    return "\n".join(parts)
+    builds = [{"set_id": s.params.set_id, "description": s.params.description,
+               "colour": _color(k), "params": _params_table(s), "onset": _onset_table(s),
+               "amplitudes": _amplitude_table(s), "loops": figs["loops"][k]}
+              for k, s in enumerate(summaries)]
+    return render_page("characterization.html", builds=builds,
+                       identity=_identity_table(summaries), comparison=_compare_table(summaries),
+                       figures=figs, created=created, version=version,
+                       runners=sorted({s.ringdown.source for s in summaries}))
 
 
 def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None,
