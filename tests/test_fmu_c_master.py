@@ -23,7 +23,6 @@ pytest.importorskip("fmpy")
 from fmpy import read_model_description  # noqa: E402
 
 from jointfmu.physics import reference  # noqa: E402
-from jointfmu.fmu.build import build_fmu  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
@@ -45,12 +44,12 @@ pytestmark = [
 
 
 @pytest.fixture(scope="module")
-def master(tmp_path_factory):
+def master(tmp_path_factory, example_fmus):
     d = tmp_path_factory.mktemp("c_master")
     exe = d / "fmi2_master"
     subprocess.run(["gcc", "-O1", "-Wall", "-o", str(exe), str(HERE / "c_master" / "fmi2_master.c"),
                     "-ldl"], check=True, capture_output=True)
-    fmu = build_fmu(NOMINAL, d / "nominal.fmu").path
+    fmu = example_fmus["tray_nominal"].path
     unzipped = d / "fmu"
     with zipfile.ZipFile(fmu) as z:
         z.extractall(unzipped)

@@ -27,10 +27,8 @@ NOMINAL = EXAMPLES / "tray_nominal.toml"
 
 
 @pytest.fixture(scope="module")
-def nominal_fmu(tmp_path_factory):
-    out = tmp_path_factory.mktemp("cli") / "nominal.fmu"
-    assert main(["build", str(NOMINAL), "-o", str(out)]) == 0
-    return out
+def nominal_fmu(example_fmus):
+    return example_fmus["tray_nominal"].path  # the build command itself is tested below
 
 
 def test_build_prints_where_and_default_path_outside_repo(tmp_path, capsys, monkeypatch):

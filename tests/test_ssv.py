@@ -23,7 +23,6 @@ pytest.importorskip("fmpy")
 pytest.importorskip("pythonfmu")
 
 from jointfmu.physics import reference  # noqa: E402
-from jointfmu.fmu.build import build_fmu
 from jointfmu.fmu.ssv import parameter_values_ssv, read_parameter_values
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import InputError, ParameterError  # noqa: E402
@@ -36,10 +35,8 @@ SSV = "{http://ssp-standard.org/SSP1/SystemStructureParameterValues}"
 
 
 @pytest.fixture(scope="session")
-def ssv_fmus(tmp_path_factory):
-    out = tmp_path_factory.mktemp("ssv_fmus")
-    return {name: build_fmu(EXAMPLES / f"{name}.toml", out / f"{name}.fmu").path
-            for name in ("tray_nominal", "tray_worn")}
+def ssv_fmus(example_fmus):
+    return {name: example_fmus[name].path for name in ("tray_nominal", "tray_worn")}
 
 
 @pytest.fixture(scope="session")

@@ -17,7 +17,6 @@ pytest.importorskip("pyarrow")
 
 import pandas as pd  # noqa: E402
 
-from jointfmu.fmu.build import build_fmu  # noqa: E402
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.cosim.sweep import (Task, dask_client, read_table, run_tasks,  # noqa: E402
@@ -29,10 +28,8 @@ BUILDS = ("tray_nominal", "tray_worn")
 
 
 @pytest.fixture(scope="module")
-def builds(tmp_path_factory):
-    d = tmp_path_factory.mktemp("sweep_fmus")
-    return [(EXAMPLES / f"{b}.toml", build_fmu(EXAMPLES / f"{b}.toml", d / f"{b}.fmu").path)
-            for b in BUILDS]
+def builds(example_fmus):
+    return [(EXAMPLES / f"{b}.toml", example_fmus[b].path) for b in BUILDS]
 
 
 @pytest.fixture(scope="module")

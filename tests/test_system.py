@@ -39,8 +39,8 @@ NOMINAL = EXAMPLES / "tray_nominal.toml"
 
 
 @pytest.fixture(scope="module")
-def nominal_fmu(tmp_path_factory):
-    return build_fmu(NOMINAL, tmp_path_factory.mktemp("sys") / "nominal.fmu").path
+def nominal_fmu(example_fmus):
+    return example_fmus["tray_nominal"].path
 
 
 @pytest.fixture(scope="module")
