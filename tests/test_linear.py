@@ -112,14 +112,29 @@ def test_zero_amplitude_is_the_low_amplitude_model():
     np.testing.assert_allclose(tiny.zeta, lm.zeta, rtol=0.05)
 
 
-@pytest.mark.parametrize("quantity, value", [("x", 2e-4), ("v", 0.05), ("a", 150.0)])
+#: 2e-4 m at 'tip' by hand: each mode alone moves the point by |phi_tip,i| A_i, so
+#: A_i = 2e-4 / |phi_tip,i| with the tip shape (0.62, 0.85, -0.45, 0.95) 1/sqrt(kg) that
+#: examples/tray_nominal.toml gives (derived here): 3.2258e-4, 2.3529e-4, 4.4444e-4, 2.1053e-4.
+TIP_X_2E4 = [2e-4 / 0.62, 2e-4 / 0.85, 2e-4 / 0.45, 2e-4 / 0.95]
+
+
+def test_modal_amplitudes_at_point_displacement_by_hand():
+    """A displacement amplitude needs no frequency: the modal amplitudes are the hand values
+    from the mode shape (the sign of the shape does not matter)."""
+    A = L.modal_amplitudes_at_point(NOMINAL, "tip", 2e-4, "x")
+    np.testing.assert_allclose(A, TIP_X_2E4, rtol=1e-14)
+    np.testing.assert_allclose(A, [3.2258e-4, 2.3529e-4, 4.4444e-4, 2.1053e-4], rtol=2e-5)
+
+
+@pytest.mark.parametrize("quantity, value", [("v", 0.05), ("a", 150.0)])
 def test_modal_amplitudes_at_point_round_trip(quantity, value):
-    """Each mode alone at its first-harmonic frequency moves 'tip' by the requested amplitude."""
+    """Each mode alone at its first-harmonic frequency moves 'tip' by the requested amplitude:
+    the frequency at the amplitude found (from equivalent_linear) closes the loop."""
     A = L.modal_amplitudes_at_point(NOMINAL, "tip", value, quantity)
     lm = L.equivalent_linear(NOMINAL, A)
     tip = np.abs(NOMINAL.points[1].shape)
     w = 2 * math.pi * lm.frequency
-    got = tip * A * w ** {"x": 0, "v": 1, "a": 2}[quantity]
+    got = tip * A * w ** {"v": 1, "a": 2}[quantity]
     np.testing.assert_allclose(got, value, rtol=1e-10)
 
 
@@ -275,6 +290,19 @@ def test_cli_linearize(tmp_path, capsys):
     np.testing.assert_allclose(lm.A, ref.A, rtol=1e-12)
     np.testing.assert_allclose(lm.C, ref.C, rtol=1e-12)
     assert "wrote" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("amplitude", ["tip=2e-4", "tip.x=2e-4"])
+def test_cli_linearize_displacement_amplitude(tmp_path, capsys, amplitude):
+    """``--amplitude tip=2e-4`` (displacement, the default) and ``tip.x=2e-4`` give the modal
+    amplitudes worked out by hand from the tip's mode shape (TIP_X_2E4)."""
+    from jointfmu.cli import main
+
+    out = tmp_path / "lin"
+    rc = main(["linearize", str(EXAMPLES / "tray_nominal.toml"), "--amplitude", amplitude,
+               "-o", str(out)])
+    assert rc == 0, capsys.readouterr().err
+    np.testing.assert_allclose(L.LinearModel.load(out).modal_amplitude, TIP_X_2E4, rtol=1e-14)
 
 
 @pytest.mark.parametrize("argv, message", [
