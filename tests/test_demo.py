@@ -1,15 +1,14 @@
 """``jointfmu demo --quick``: end to end on the shipped examples; every promised file exists and
-is non-trivial; a rerun reuses the sweep; the exported linear models are the ones
-``linear.equivalent_linear`` gives at the amplitudes the sweep measured.
+shows what it should (the pages' tables against the results table, the parameter files and the
+closed forms; plots drawn on; the caution); a rerun reuses the sweep; the exported linear models
+are the ones ``linear.equivalent_linear`` gives at the amplitudes the sweep measured.
 
-PNG sizes are read from the IHDR chunk as the PNG specification lays it out (ISO/IEC 15948,
-sec. 11.2.2: width and height, 4-byte big-endian, after the 8-byte signature and the chunk's
-length and type).
+Pages and PNGs are read back with ``tests/page_content.py`` (PNG sizes from the IHDR chunk as the
+PNG specification lays it out, ISO/IEC 15948 sec. 11.2.2).
 """
 from __future__ import annotations
 
 import json
-import struct
 from pathlib import Path
 
 import numpy as np
@@ -27,6 +26,8 @@ from jointfmu.cli.demo import CAUTION, find_examples, run_demo  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
 from jointfmu.cosim.system import LOAD_CASES  # noqa: E402
+from page_content import ink, number, png_size, tables  # noqa: E402
+from test_characterize import hand_closed_forms  # noqa: E402
 
 N_BUILDS, N_CASES = 3, len(LOAD_CASES)
 
@@ -42,12 +43,6 @@ def demo(tmp_path_factory):
     with contextlib.redirect_stdout(buf):
         rc = main(["demo", "--quick", "--out", str(out), "--no-progress"])
     return rc, out, buf.getvalue()
-
-
-def _png_size(path: Path) -> tuple[int, int]:
-    data = path.read_bytes()[:24]
-    assert data[:8] == b"\x89PNG\r\n\x1a\n" and data[12:16] == b"IHDR"
-    return struct.unpack(">II", data[16:24])
 
 
 def test_demo_exits_zero_and_prints_summary_paths_and_caution(demo):
@@ -104,32 +99,111 @@ def test_histories_one_file_per_run_with_all_steps(demo):
         assert float(h["energy.joint"].iloc[-1]) == pytest.approx(r["energy_joint"])
 
 
-def test_system_page_tables_plots_and_caution(demo):
+def _rows(page, table_id):
+    head, *rows = tables(page)[table_id]
+    return head, rows
+
+
+def test_system_page_results_table_is_the_sweep(demo):
+    """One row per run, in build/case/controller order, each value the results table's to the
+    digits shown."""
     _, out, _ = demo
     page = (out / "system" / "system.html").read_text()
-    assert 'id="system-results"' in page and 'id="controller-benefit"' in page
-    assert 'id="linear-models"' in page and page.count("../linear/sn-") >= 3 * 4
-    assert page.count("<tr>") >= N_BUILDS * N_CASES * 2 + N_BUILDS * N_CASES
-    assert CAUTION in page
+    df = pd.read_parquet(out / "system" / "results.parquet").sort_values(
+        ["build", "case", "controller"])
+    head, rows = _rows(page, "system-results")
+    assert head[:3] == ["build", "case", "controller"] and len(rows) == len(df)
+    # column: (results column, scale, decimals shown)
+    cols = [("duration", 1, 3), ("tip_acc_peak_g", 1, 2), ("tip_acc_rms_g", 1, 2),
+            ("base_force_peak", 1, 1), ("energy_joint", 1, 4), ("actuator_force_peak", 1, 1),
+            ("actuator_saturated", 100, 1), ("lin_rms_diff", 100, 1), ("lin_peak_diff", 100, 1)]
+    for row, (_, r) in zip(rows, df.iterrows()):
+        assert row[:3] == [r["build"], r["case"], "on" if r["controller"] else "off"]
+        for cell, (col, scale, dec) in zip(row[3:], cols):
+            assert number(cell) == pytest.approx(scale * r[col], abs=0.51 * 10.0**-dec), (col, row)
+
+
+def test_system_page_controller_benefit(demo):
+    """Change with the controller on, per build and case: 100 (on/off - 1) of tip RMS and of peak
+    interface force, from the results table."""
+    _, out, _ = demo
+    page = (out / "system" / "system.html").read_text()
+    df = pd.read_parquet(out / "system" / "results.parquet")
+    _, rows = _rows(page, "controller-benefit")
+    assert len(rows) == N_BUILDS * N_CASES
+    for b, case, tip, force in rows:
+        sel = df[(df["build"] == b) & (df["case"] == case)].set_index("controller")
+        for cell, col in ((tip, "tip_acc_rms"), (force, "base_force_peak")):
+            want = 100 * (sel.loc[True, col] / sel.loc[False, col] - 1)
+            assert number(cell) == pytest.approx(want, abs=0.051), (b, case, col)
+        assert number(tip) < 0  # collocated velocity feedback only removes energy (common practice)
+
+
+def test_system_page_linear_models_against_closed_forms(demo):
+    """Per build and mode: amplitude, A/phimax, frequency and damping of the exported model; A/phimax
+    with phimax from the parameter file (Segalman's inverse relation), frequency and damping the
+    first-harmonic closed forms at that amplitude (hand_closed_forms, test_characterize.py), to the
+    digits shown; the folder is where the model is."""
+    _, out, _ = demo
+    page = (out / "system" / "system.html").read_text()
+    _, rows = _rows(page, "linear-models")
+    sets = {load_parameter_set(f).build: load_parameter_set(f) for f in find_examples()}
+    assert len(rows) == sum(ps.n_modes for ps in sets.values())
+    for b, case, label, amp, ratio, freq, zeta, folder in rows:
+        ps = sets[b]
+        m = next(m for m in ps.modes if m.label == label)
+        A = number(amp)
+        hand = hand_closed_forms(m, [A / hand_closed_forms(m, [0.5])["phimax"]])
+        assert number(ratio) == pytest.approx(A / hand["phimax"], abs=5e-4 + 2e-3 * number(ratio))
+        assert number(ratio) < 1  # the hand forms hold below macro-slip
+        assert number(freq) == pytest.approx(hand["f1"][0], abs=5e-3 + 1e-4 * number(freq))
+        assert number(zeta) == pytest.approx(hand["zeta_eq"][0], abs=5.1e-5 + 2e-3 * number(zeta))
+        assert case in LOAD_CASES
+        assert (out / "system" / folder / "metadata.json").is_file()
+
+
+def test_system_page_plots_and_caution(demo):
+    _, out, _ = demo
+    page = (out / "system" / "system.html").read_text()
+    assert page.count(CAUTION) == 2 and "invented demo data" in page
     assert 'href="../report/index.html"' in page and (out / "report" / "index.html").is_file()
     for case in LOAD_CASES:
         assert case in page
     pngs = sorted((out / "system").glob("*.png"))
     assert len(pngs) == 4
     for p in pngs:
-        assert p.name in page
-        w, h = _png_size(p)
+        assert f'src="{p.name}"' in page
+        w, h = png_size(p)
         assert w >= 400 and h >= 300, (p.name, w, h)
-        assert p.stat().st_size > 10_000
+        drawn, coloured = ink(p)
+        assert drawn > 0.05 and coloured > 0.001, (p.name, drawn, coloured)
     csv = pd.read_csv(out / "system" / "system_summary.csv")
     assert len(csv) == N_BUILDS * N_CASES * 2
 
 
-def test_report_written(demo):
+def test_report_of_the_three_builds(demo):
+    """The characterization report: the three builds with the files' content hashes, one
+    comparison row per build and mode with the file's f0, seven PNGs drawn on, the caution."""
     _, out, _ = demo
-    pages = list((out / "report").rglob("*.html"))
-    assert pages and all(p.stat().st_size > 2_000 for p in pages)
-    assert any(CAUTION.split(";")[0] in p.read_text() for p in pages)
+    page = (out / "report" / "index.html").read_text()
+    sets = [load_parameter_set(f) for f in find_examples()]
+    _, rows = _rows(page, "builds")
+    assert [r[1:3] for r in rows] == [[ps.set_id, ps.content_hash()] for ps in sets]
+    _, rows = _rows(page, "comparison")
+    assert len(rows) == sum(ps.n_modes for ps in sets)
+    f0 = {(ps.set_id, m.label): m.f0 for ps in sets for m in ps.modes}
+    label = None
+    for r in rows:
+        label = r[0].split(" ", 1)[1] if r[0] else label
+        assert number(r[2]) == pytest.approx(f0[(r[1], label)], rel=5e-4)
+    pngs = sorted((out / "report").glob("*.png"))
+    assert [p.name for p in pngs] == ["damping.png", "dissipation.png", "frequency.png",
+                                      "loops_1.png", "loops_2.png", "loops_3.png", "ringdown.png"]
+    for p in pngs:
+        assert f'src="{p.name}"' in page
+        drawn, coloured = ink(p)
+        assert drawn > 0.05 and coloured > 0.005, (p.name, drawn, coloured)
+    assert page.count(CAUTION) == 2
 
 
 def test_linear_models_at_the_worst_case_amplitudes(demo):

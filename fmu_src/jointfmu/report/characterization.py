@@ -293,7 +293,7 @@ def _length(x_m: float) -> str:
     return f"{_num(1e3 * x_m)} mm" if x_m >= 1e-3 else f"{_num(1e6 * x_m)} µm"
 
 
-def _params_table(s: BuildSummary) -> Table:
+def _params_table(s: BuildSummary, k: int) -> Table:
     rows = []
     for i, m in enumerate(s.params.modes):
         j = m.joint
@@ -302,10 +302,10 @@ def _params_table(s: BuildSummary) -> Table:
                      _num(j.Kt), _num(j.chi), _num(j.beta), _num(1e6 * cv.phimax),
                      _num(cv.f_macro, 4)])
     return Table(["mode", "f0 [Hz]", "ζ [%]", "Fs [N/√kg]", "Kt [1/s²]", "χ", "β",
-                  "φmax [µm·√kg]", "f macro-slip [Hz]"], rows)
+                  "φmax [µm·√kg]", "f macro-slip [Hz]"], rows, id=f"parameters-{k + 1}")
 
 
-def _onset_table(s: BuildSummary) -> Table:
+def _onset_table(s: BuildSummary, k: int) -> Table:
     pts = s.params.output_points
     rows = []
     for i, m in enumerate(s.params.modes):
@@ -317,10 +317,10 @@ def _onset_table(s: BuildSummary) -> Table:
             cells.append(f"{_length(phi * cv.phimax)} / {_num(w1**2 * phi * cv.phimax / _G)} g"
                          if phi else "–")
         rows.append(cells)
-    return Table(["mode"] + [f"'{p.label}': x / a" for p in pts], rows)
+    return Table(["mode"] + [f"'{p.label}': x / a" for p in pts], rows, id=f"onset-{k + 1}")
 
 
-def _amplitude_table(s: BuildSummary) -> Table:
+def _amplitude_table(s: BuildSummary, k: int) -> Table:
     rows = []
     for i, m in enumerate(s.params.modes):
         cv = s.curves[i]
@@ -334,7 +334,7 @@ def _amplitude_table(s: BuildSummary) -> Table:
     r = [f"{v:g}" for v in _RATIOS]
     head = (["mode"] + [f"ζ_rd [%] at {x} φmax" for x in r] + [f"ζ_eq [%] at {x} φmax" for x in r]
             + [f"ζ Hilbert [%] at {x} φmax" for x in r] + ["frequency drop at φmax [%]"])
-    return Table(head, rows, cls="wide")
+    return Table(head, rows, cls="wide", id=f"amplitudes-{k + 1}")
 
 
 def _compare_table(summaries) -> Table:
@@ -356,14 +356,15 @@ def _compare_table(summaries) -> Table:
                          _num(m.f0, 4), _num(100 * at.zeta_rd[0]), onset,
                          _num(100 * (1 - at.freq_1[1] / m.f0))])
     return Table(["mode", "build", "f0 [Hz]", "ζ_rd at 0.5 φmax [%]",
-                  "macro-slip onset (acceleration amplitude)", "frequency drop at onset [%]"], rows)
+                  "macro-slip onset (acceleration amplitude)", "frequency drop at onset [%]"], rows,
+                 id="comparison")
 
 
 def _identity_table(summaries) -> Table:
     return Table(["", "parameter set", "content hash (SHA-256)", "file", "fitted", "source data"],
                  [[Cell(swatch=_color(k)), s.params.set_id, Cell(s.params.content_hash(), code=True),
                    str(s.params.source), s.params.provenance.date, s.params.provenance.source_data]
-                  for k, s in enumerate(summaries)])
+                  for k, s in enumerate(summaries)], id="builds")
 
 
 def _color(k):
@@ -375,8 +376,8 @@ def _color(k):
 
 def _page(summaries, figs, created, version) -> str:
     builds = [{"set_id": s.params.set_id, "description": s.params.description,
-               "colour": _color(k), "params": _params_table(s), "onset": _onset_table(s),
-               "amplitudes": _amplitude_table(s), "loops": figs["loops"][k]}
+               "colour": _color(k), "params": _params_table(s, k), "onset": _onset_table(s, k),
+               "amplitudes": _amplitude_table(s, k), "loops": figs["loops"][k]}
               for k, s in enumerate(summaries)]
     return render_page("characterization.html", builds=builds,
                        identity=_identity_table(summaries), comparison=_compare_table(summaries),
