@@ -28,6 +28,7 @@ from ..analysis.summary import BuildSummary, as_parameter_set, summarize_build
 from ..errors import InputError
 from ..analysis.linear import CAUTION, equivalent_linear
 from ..fileio import check_output_path, swap_into_place
+from .figures import new_figure
 from .render import Cell, Table, render_page
 
 __all__ = ["write_report", "BuildSummary", "summarize_build", "FmuRunner", "get_runner",
@@ -45,13 +46,7 @@ _RATIOS = (0.1, 0.5, 1.0)  # amplitudes, relative to phimax, shown in the tables
 # figures (matplotlib, Agg)
 # ------------------------------------------------------------------------------------------------
 def _figure(nrows, ncols, w=11.0, h=7.5):
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(w, h), dpi=100, layout="constrained")
-    FigureCanvasAgg(fig)
-    axes = fig.subplots(nrows, ncols, squeeze=False)
-    return fig, axes
+    return new_figure((w, h), nrows, ncols, layout="constrained", squeeze=False)
 
 
 def _save(fig, path: Path) -> str:
@@ -361,10 +356,11 @@ def _compare_table(summaries) -> Table:
 
 
 def _identity_table(summaries) -> Table:
+    rows = [[Cell(swatch=_color(k)), s.params.set_id, Cell(s.params.content_hash(), code=True),
+             str(s.params.source), s.params.provenance.date, s.params.provenance.source_data]
+            for k, s in enumerate(summaries)]
     return Table(["", "parameter set", "content hash (SHA-256)", "file", "fitted", "source data"],
-                 [[Cell(swatch=_color(k)), s.params.set_id, Cell(s.params.content_hash(), code=True),
-                   str(s.params.source), s.params.provenance.date, s.params.provenance.source_data]
-                  for k, s in enumerate(summaries)], id="builds")
+                 rows, id="builds")
 
 
 def _color(k):

@@ -1,8 +1,8 @@
 """The system page of a co-simulation sweep: ``system.html``, its PNG plots and a summary CSV.
 
-The figures are drawn here (Matplotlib's object-oriented API with the Agg canvas: no global
-pyplot state) and the numbers formatted; ``templates/system.html`` lays them out.  Every file is
-written atomically.  ``jointfmu demo`` writes this page after its sweep (:mod:`..cli.demo`).
+The figures are drawn here (:mod:`.figures`: no global pyplot state) and the numbers formatted;
+``templates/system.html`` lays them out.  Every file is written atomically.  ``jointfmu demo``
+writes this page after its sweep (:mod:`..cli.demo`).
 
 A fitted model is no substitute for qualification testing; defer to the applicable codes,
 standards and licensed engineering practice.
@@ -12,6 +12,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..fileio import atomic_write
+from .figures import DPI, new_figure
 from .render import render_page
 
 __all__ = ["write_system_page", "SUMMARY_COLUMNS"]
@@ -34,17 +35,8 @@ def _atomic_text(path: Path, text: str) -> Path:
 
 def _atomic_figure(fig, path: Path) -> Path:
     with atomic_write(path, "wb") as f:
-        fig.savefig(f, format="png", dpi=100)
+        fig.savefig(f, format="png", dpi=DPI)
     return path
-
-
-def _figure(nrows=1, ncols=1, **kw):
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=kw.pop("figsize"), dpi=100)
-    FigureCanvasAgg(fig)
-    return fig, fig.subplots(nrows, ncols, **kw)
 
 
 def _on_off(on) -> str:
@@ -55,7 +47,7 @@ def _fig_tip(df, builds, cases, path: Path) -> Path:
     """Tip RMS (bars) and peak (markers) per case, build and controller."""
     import numpy as np
 
-    fig, axes = _figure(1, len(cases), figsize=(4.2 * len(cases), 3.6), squeeze=False)
+    fig, axes = new_figure((4.2 * len(cases), 3.6), 1, len(cases), squeeze=False)
     w = 0.38
     for ax, case in zip(axes[0], cases):
         x = np.arange(len(builds))
@@ -80,7 +72,7 @@ def _fig_energy(df, builds, cases, path: Path) -> Path:
     """Joint energy dissipated and peak interface force per build and case."""
     import numpy as np
 
-    fig, axes = _figure(1, 2, figsize=(10, 3.6))
+    fig, axes = new_figure((10, 3.6), 1, 2)
     w = 0.38
     labels = [f"{b}\n{c}" for b in builds for c in cases]
     x = np.arange(len(labels))
@@ -105,7 +97,7 @@ def _fig_linear(df, path: Path) -> Path:
 
     from ..cosim.system import G0
 
-    fig, ax = _figure(figsize=(4.8, 4.2))
+    fig, ax = new_figure((4.8, 4.2))
     for on, mk in ((False, "o"), (True, "s")):
         sel = df[df["controller"] == on]
         ax.plot(sel["tip_acc_rms_g"], sel["lin_tip_acc_rms"] / G0, mk, mfc="none",
@@ -126,8 +118,7 @@ def _fig_history(df, builds, worst_case, history_dir: Path, path: Path) -> Path:
 
     from ..cosim.system import G0
 
-    fig, axes = _figure(len(builds), 1, figsize=(9, 2.3 * len(builds)), sharex=True,
-                        squeeze=False)
+    fig, axes = new_figure((9, 2.3 * len(builds)), len(builds), 1, sharex=True, squeeze=False)
     for ax, b in zip(axes[:, 0], builds):
         for on, col in zip((False, True), _OFF_ON):
             sel = df[(df["build"] == b) & (df["case"] == worst_case) & (df["controller"] == on)]
@@ -163,9 +154,9 @@ def _benefit_rows(df, builds, cases) -> list[list[str]]:
         for cs in cases:
             a = df[(df["build"] == b) & (df["case"] == cs)].set_index("controller")
             if False in a.index and True in a.index:
-                rows.append([b, cs,
-                             f"{100 * (a.loc[True, 'tip_acc_rms'] / a.loc[False, 'tip_acc_rms'] - 1):+.1f}",
-                             f"{100 * (a.loc[True, 'base_force_peak'] / a.loc[False, 'base_force_peak'] - 1):+.1f}"])
+                on, off = a.loc[True], a.loc[False]
+                rows.append([b, cs, f"{100 * (on['tip_acc_rms'] / off['tip_acc_rms'] - 1):+.1f}",
+                             f"{100 * (on['base_force_peak'] / off['base_force_peak'] - 1):+.1f}"])
     return rows
 
 
