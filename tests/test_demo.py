@@ -140,10 +140,10 @@ def test_system_page_controller_benefit(demo):
 
 
 def test_system_page_linear_models_against_closed_forms(demo):
-    """Per build and mode: amplitude, A/phimax, frequency and damping of the exported model; A/phimax
-    with phimax from the parameter file (Segalman's inverse relation), frequency and damping the
-    first-harmonic closed forms at that amplitude (hand_closed_forms, test_characterize.py), to the
-    digits shown; the folder is where the model is."""
+    """Per build and mode: amplitude, A/phimax, frequency and damping of the exported model;
+    A/phimax with phimax from the parameter file (Segalman's inverse relation), frequency and
+    damping the first-harmonic closed forms at that amplitude (hand_closed_forms,
+    test_characterize.py), to the digits shown; the folder is where the model is."""
     _, out, _ = demo
     page = (out / "system" / "system.html").read_text()
     _, rows = _rows(page, "linear-models")

@@ -24,8 +24,8 @@ import json
 import tempfile
 import time
 from contextlib import nullcontext
-from importlib import resources
 from dataclasses import replace
+from importlib import resources
 from pathlib import Path
 from typing import Sequence
 
