@@ -21,15 +21,14 @@ pytest.importorskip("pythonfmu")
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import OutputPathError  # noqa: E402
 from jointfmu.fileio import check_output_path  # noqa: E402
-from jointfmu.fmu.build import build_fmu  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 NOMINAL = EXAMPLES / "tray_nominal.toml"
 
 
 @pytest.fixture(scope="module")
-def nominal_fmu(tmp_path_factory):
-    return build_fmu(NOMINAL, tmp_path_factory.mktemp("out") / "nominal.fmu").path
+def nominal_fmu(example_fmus):
+    return example_fmus["tray_nominal"].path  # built once per session (conftest.py)
 
 
 @pytest.fixture(scope="module")

@@ -21,7 +21,6 @@ pytest.importorskip("pythonfmu")
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.fmu import run as jrun  # noqa: E402
-from jointfmu.fmu.build import build_fmu  # noqa: E402
 from jointfmu.fmu.run import GRID_TOLERANCE, plan_run  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
@@ -29,8 +28,8 @@ NOMINAL = EXAMPLES / "tray_nominal.toml"
 
 
 @pytest.fixture(scope="module")
-def nominal_fmu(tmp_path_factory):
-    return build_fmu(NOMINAL, tmp_path_factory.mktemp("sim") / "nominal.fmu").path
+def nominal_fmu(example_fmus):
+    return example_fmus["tray_nominal"].path  # built once per session (conftest.py)
 
 
 def _write_csv(path, header, rows):
