@@ -9,7 +9,6 @@ PNG specification lays it out, ISO/IEC 15948 sec. 11.2.2).
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest

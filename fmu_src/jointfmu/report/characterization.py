@@ -26,7 +26,7 @@ from ..analysis import characterize as C
 from ..analysis.runners import FmuRunner, get_runner
 from ..analysis.summary import BuildSummary, as_parameter_set, summarize_build
 from ..errors import InputError
-from ..analysis.linear import CAUTION, equivalent_linear
+from ..analysis.linear import equivalent_linear
 from ..fileio import check_output_path, swap_into_place
 from .figures import new_figure
 from .render import Cell, Table, render_page
