@@ -24,7 +24,7 @@ from jointfmu.cli import main  # noqa: E402
 from jointfmu.cli.demo import CAUTION, find_examples, run_demo  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
-from jointfmu.cosim.system import LOAD_CASES  # noqa: E402
+from jointfmu.cosim.loads import LOAD_CASES  # noqa: E402
 from page_content import ink, number, png_size, tables  # noqa: E402
 from test_characterize import hand_closed_forms  # noqa: E402
 

@@ -7,7 +7,7 @@ References: the SSP 1.0 schemas ``SystemStructureDescription.xsd`` and
 fmpy); FMI 2.0 (causality and units of the FMUs' model descriptions); libcosim's fixed-step
 algorithm, read in its source (``fixed_step_algorithm.cpp``): every simulator steps from the same
 inputs, then the outputs are transferred (Jacobi, inputs held over the step), like the
-``jointfmu cosim`` loop (``cosim/system.py``).
+``jointfmu cosim`` loop (``cosim/master.py``).
 """
 from __future__ import annotations
 
@@ -27,7 +27,8 @@ from lxml import etree  # noqa: E402
 
 from jointfmu.cli import main  # noqa: E402
 from jointfmu.cosim.ssp import OMS_NS, OSP_NS, SSD_NS, export_ssp  # noqa: E402
-from jointfmu.cosim.system import ControllerSettings, SystemSettings  # noqa: E402
+from jointfmu.cosim.controller import ControllerSettings  # noqa: E402
+from jointfmu.cosim.master import SystemSettings  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.fmu.ssv import SSC_NS, SSV_NS, parameter_values_ssv, ssp_schema  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402

@@ -21,7 +21,7 @@ from jointfmu.cli import main  # noqa: E402
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.cosim.sweep import (Task, dask_client, read_table, run_tasks,  # noqa: E402
                             system_tasks, write_table)
-from jointfmu.cosim.system import SystemSettings  # noqa: E402
+from jointfmu.cosim.master import SystemSettings  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 BUILDS = ("tray_nominal", "tray_worn")

@@ -1,4 +1,4 @@
-"""The co-simulation system loop (``jointfmu.cosim.system``): the tray FMU with loads model and controller.
+"""The co-simulation system loop (``jointfmu.cosim.master``): the tray FMU with loads model and controller.
 
 References outside the product:
 
@@ -30,8 +30,10 @@ from jointfmu.fmu.build import build_fmu
 from jointfmu.fmu.run import run_fmu
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.params import load_parameter_set, save_parameter_set  # noqa: E402
-from jointfmu.cosim.system import (G0, LOAD_CASES, ActiveDamper, ControllerSettings,  # noqa: E402
-                             FmuStructure, SystemSettings, base_motion, run_system)
+from jointfmu.cosim.controller import ActiveDamper, ControllerSettings  # noqa: E402
+from jointfmu.cosim.loads import G0, LOAD_CASES, base_motion  # noqa: E402
+from jointfmu.cosim.master import SystemSettings, run_system  # noqa: E402
+from jointfmu.cosim.structures import FmuComponent  # noqa: E402
 from jointfmu.cosim.runs import run_case  # noqa: E402
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
@@ -57,7 +59,7 @@ def linear_joint(tmp_path_factory):
 @pytest.mark.parametrize("case", ["curb_strike", "rough_traverse"])
 def test_controller_off_loop_equals_fmu_driven_directly(nominal_fmu, case):
     s = SystemSettings(duration=0.05)
-    with FmuStructure(nominal_fmu) as st:
+    with FmuComponent(nominal_fmu) as st:
         run = run_system(st, case, controller_on=False, settings=s)
     t = run.history["time"]
     a = run.history["base.acceleration"]
@@ -109,9 +111,9 @@ def test_controller_on_matches_scipy_closed_loop(linear_joint, case):
     ps, fmu = linear_joint
     ctrl = ControllerSettings(gain=200.0, tau=0.5e-3, force_limit=1e9)
     s = SystemSettings(step=2e-5, duration=0.12, controller=ctrl)
-    with FmuStructure(fmu) as st:
+    with FmuComponent(fmu) as st:
         on = run_system(st, case, True, s)
-    with FmuStructure(fmu) as st:
+    with FmuComponent(fmu) as st:
         off = run_system(st, case, False, s)
     t, a = on.history["time"], on.history["base.acceleration"]
     ref_on = _scipy_closed_loop(ps, t, a, ctrl.gain, ctrl.tau)
@@ -131,7 +133,7 @@ def test_controller_on_matches_scipy_closed_loop(linear_joint, case):
 def test_saturation_limits_the_actuator_force(nominal_fmu):
     ctrl = ControllerSettings(gain=2000.0, force_limit=5.0)
     s = SystemSettings(duration=0.05, controller=ctrl)
-    with FmuStructure(nominal_fmu) as st:
+    with FmuComponent(nominal_fmu) as st:
         run = run_system(st, "curb_strike", True, s)
     f = run.history["actuator.force"]
     assert np.max(np.abs(f)) == pytest.approx(5.0)
@@ -194,7 +196,7 @@ def test_bad_controller_settings(kw, match):
 
 def test_missing_fmu_is_a_clear_error(tmp_path):
     with pytest.raises(InputError, match="does not exist"):
-        FmuStructure(tmp_path / "none.fmu")
+        FmuComponent(tmp_path / "none.fmu")
 
 
 def test_run_case_row_and_history(nominal_fmu, tmp_path):
@@ -221,7 +223,7 @@ def test_coupling_error_is_first_order_in_the_step(linear_joint):
     errs = []
     for h in (1e-4, 2e-5):
         s = SystemSettings(step=h, duration=0.08, controller=ctrl)
-        with FmuStructure(fmu) as st:
+        with FmuComponent(fmu) as st:
             on = run_system(st, "motor_sweep", True, s)
         t, a = on.history["time"], on.history["base.acceleration"]
         ref = _scipy_closed_loop(ps, t, a, ctrl.gain, ctrl.tau)
@@ -269,9 +271,9 @@ def test_loading_an_fmu_first_leaves_building_possible(nominal_fmu, tmp_path):
 
     code = (
         "import sys\n"
-        "from jointfmu.cosim.system import FmuStructure\n"
+        "from jointfmu.cosim.structures import FmuComponent\n"
         "from jointfmu.fmu.build import build_fmu\n"
-        f"with FmuStructure({str(nominal_fmu)!r}) as s:\n"
+        f"with FmuComponent({str(nominal_fmu)!r}) as s:\n"
         "    s.do_step(0.0, 1e-4)\n"
         "assert not [p for p in sys.path if p.endswith('resources')], sys.path\n"
         f"build_fmu({str(NOMINAL)!r}, {str(tmp_path / 'again.fmu')!r})\n"
@@ -296,7 +298,7 @@ def test_three_fmu_system_equals_python_components(nominal_fmu, tmp_path, case):
     # FMI 2.0 model-description rules as fmpy checks them
     assert validate_fmu(str(loads)) == [] and validate_fmu(str(ctrl)) == []
     three = run_system_of_fmus(nominal_fmu, loads, ctrl, True, s, case=case)
-    with FmuStructure(nominal_fmu) as st:
+    with FmuComponent(nominal_fmu) as st:
         py = run_system(st, case, True, s)
     assert set(three.history) == set(py.history)
     for name in py.history:

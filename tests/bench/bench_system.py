@@ -20,7 +20,8 @@ from pathlib import Path
 from jointfmu.fmu.build import build_fmu
 from jointfmu.cosim.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
 from jointfmu.cosim.sweep import run_tasks, system_tasks
-from jointfmu.cosim.system import FmuStructure, SystemSettings, run_system
+from jointfmu.cosim.master import SystemSettings, run_system
+from jointfmu.cosim.structures import FmuComponent
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "examples"
 
@@ -41,11 +42,11 @@ def main() -> None:
         n = round(dur / s.step)
         # warm-up: the first run in a process loads the compiled kernel and the FMU binaries
         w = SystemSettings(duration=0.01)
-        with FmuStructure(builds[0][1]) as st:
+        with FmuComponent(builds[0][1]) as st:
             run_system(st, "rough_traverse", True, w)
         run_system_of_fmus(builds[0][1], build_loads_fmu("rough_traverse", d / "w.fmu", w),
                            ctrl, True, w)
-        with FmuStructure(builds[0][1]) as st:
+        with FmuComponent(builds[0][1]) as st:
             py = run_system(st, "rough_traverse", True, s)
         three = run_system_of_fmus(builds[0][1], loads, ctrl, True, s)
         out["step_us_python_components"] = 1e6 * py.wall_time / n

@@ -9,7 +9,8 @@ from ..errors import InputError
 from .characterize import amplitude_curves, identify_ringdown, ring_down
 from .runners import RingDown, get_runner
 
-__all__ = ["BuildSummary", "summarize_build", "as_parameter_set", "reference_points"]
+__all__ = ["BuildSummary", "summarize_build", "as_parameter_set", "reference_points",
+           "RingDownPlan", "FULL_RING_DOWNS", "QUICK_RING_DOWNS"]
 
 
 @dataclass
@@ -59,8 +60,55 @@ def reference_points(params):
     return out
 
 
-def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.03,
-                    samples_per_period: float = 40.0) -> BuildSummary:
+@dataclass(frozen=True)
+class RingDownPlan:
+    """The two ring-downs that characterize a build, and their size.
+
+    One record of every mode ringing down at once, from about ``start * phimax`` to below
+    ``end * phimax``, and one of the first mode alone, from ``start * phimax`` to below
+    ``0.1 phimax`` (at most 60 periods), both at ``samples_per_period`` samples per period of
+    the highest excited mode (:func:`.characterize.ring_down`).  :func:`summarize_build` (the
+    report) runs them, and the sweeps compute them ahead on Dask workers
+    (:func:`jointfmu.cosim.sweep.characterize_task`): both take the plan from here, so the
+    ring-downs computed ahead are exactly the ones the report asks for.
+
+    Attributes
+    ----------
+    start, end : float
+        Start and end amplitude of the all-modes record, relative to phimax.
+    samples_per_period : float
+        Samples per period of the highest excited mode.
+    """
+
+    start: float = 2.0
+    end: float = 0.03
+    samples_per_period: float = 40.0
+
+    def run(self, params, runner=None) -> tuple[RingDown, RingDown]:
+        """Both ring-downs of ``params`` by ``runner`` (see :func:`.runners.get_runner`; default
+        the core).
+
+        Returns
+        -------
+        (RingDown, RingDown)
+            Every mode at once; the first mode alone.
+        """
+        every = ring_down(params, runner, start=self.start, end=self.end,
+                          samples_per_period=self.samples_per_period)
+        first = ring_down(params, runner, start=self.start, end=0.1, modes=[0], max_periods=60,
+                          samples_per_period=self.samples_per_period)
+        return every, first
+
+
+#: The report's ring-downs at full size.
+FULL_RING_DOWNS = RingDownPlan()
+#: The reduced size of quick reports (tests, a first look, ``jointfmu demo --quick``): down to
+#: 0.2 phimax only, 24 samples per period (the Hilbert estimates then cover 0.2..~1 phimax).
+QUICK_RING_DOWNS = RingDownPlan(end=0.2, samples_per_period=24.0)
+
+
+def summarize_build(params, runner=None, *,
+                    plan: RingDownPlan = FULL_RING_DOWNS) -> BuildSummary:
     """Curves, ring-down and Hilbert estimates of one build (the data of one report section).
 
     Parameters
@@ -68,16 +116,12 @@ def summarize_build(params, runner=None, *, start: float = 2.0, end: float = 0.0
     params : ParameterSet or path
     runner : Runner, "fmu", "core" or None
         Who simulates the ring-down (default the FMU, :class:`FmuRunner`).
-    start, end : float
-        Ring-down from about ``start * phimax`` to ``end * phimax`` (every mode at once).
-    samples_per_period : float
-        Ring-down samples per period of the highest mode.
+    plan : RingDownPlan
+        Which ring-downs, at what size (:data:`QUICK_RING_DOWNS` for quick reports).
     """
     ps = as_parameter_set(params)
     curves = amplitude_curves(ps, lo=1e-3, hi=3.0, n=160)
     runner = get_runner(runner, default="fmu")
-    rd = ring_down(ps, runner, start=start, end=end, samples_per_period=samples_per_period)
+    rd, rd1 = plan.run(ps, runner)
     est = [identify_ringdown(rd, i) for i in range(ps.n_modes)]
-    rd1 = ring_down(ps, runner, start=start, end=0.1, modes=[0], max_periods=60,
-                      samples_per_period=samples_per_period)
     return BuildSummary(ps, curves, rd, rd1, est, reference_points(ps))

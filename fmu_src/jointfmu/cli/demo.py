@@ -84,8 +84,10 @@ def find_examples(folder=None) -> list[Path]:
 
 # ------------------------------------------------------------------------------ helpers
 def system_settings(args) -> "object":
-    """The :class:`.system.SystemSettings` of the options :func:`add_system_options` declared."""
-    from ..cosim.system import ControllerSettings, SystemSettings
+    """The :class:`jointfmu.cosim.master.SystemSettings` of the options
+    :func:`add_system_options` declared."""
+    from ..cosim.controller import ControllerSettings
+    from ..cosim.master import SystemSettings
 
     c = ControllerSettings(gain=args.gain, tau=args.tau, force_limit=args.force_limit)
     return SystemSettings(step=args.step, duration=args.duration, seed=args.seed,
@@ -101,7 +103,7 @@ def _controller_modes(text: str) -> tuple[bool, ...]:
 
 
 def _cases(names: Sequence[str] | None) -> list[str]:
-    from ..cosim.system import LOAD_CASES
+    from ..cosim.loads import LOAD_CASES
 
     if not names:
         return list(LOAD_CASES)
@@ -125,7 +127,7 @@ def _build_all(param_files: Sequence[Path], fmu_dir: Path) -> list[tuple[Path, P
 
 def _sweep_tasks(builds, cases, controller, settings, history_dir, quick: bool):
     from ..cosim.sweep import system_tasks
-    from ..cosim.system import LOAD_CASES
+    from ..cosim.loads import LOAD_CASES
 
     if not quick or settings.duration is not None:
         return system_tasks(builds, cases, controller, settings, history_dir)
@@ -140,7 +142,8 @@ def _sweep_tasks(builds, cases, controller, settings, history_dir, quick: bool):
 def add_system_options(p: argparse.ArgumentParser, components: bool = True) -> None:
     """The options of a system run (step, duration, load, controller values; with
     ``components`` also ``--components``), read back by :func:`system_settings`."""
-    from ..cosim.system import ControllerSettings, SystemSettings
+    from ..cosim.controller import ControllerSettings
+    from ..cosim.master import SystemSettings
 
     d, c = SystemSettings(), ControllerSettings()
     g = p.add_argument_group("system")
@@ -166,7 +169,7 @@ def add_system_options(p: argparse.ArgumentParser, components: bool = True) -> N
 
 def add_cosim_args(p: argparse.ArgumentParser) -> None:
     """Arguments of ``jointfmu cosim``."""
-    from ..cosim.system import LOAD_CASES
+    from ..cosim.loads import LOAD_CASES
 
     p.add_argument("model", metavar="FMU|PARAMS", help="an FMU, or a parameter file to build first")
     p.add_argument("--case", required=True, choices=list(LOAD_CASES), help="load case")
@@ -216,7 +219,7 @@ def cmd_cosim(args) -> int:
 # ----------------------------------------------------------------------------- sweep CLI
 def add_sweep_args(p: argparse.ArgumentParser) -> None:
     """Arguments of ``jointfmu sweep``."""
-    from ..cosim.system import LOAD_CASES
+    from ..cosim.loads import LOAD_CASES
 
     p.add_argument("params", nargs="+", metavar="PARAMS", help="parameter files (one per build)")
     p.add_argument("--cases", nargs="+", metavar="CASE", default=None,
@@ -295,7 +298,8 @@ def _three_fmu_check(build, table, settings, quick: bool, fmu_dir: Path) -> dict
     """Build a loads FMU per load case and the controller FMU; rerun one sweep case (first
     build, curb_strike, controller on) as a system of three FMUs and compare with the sweep."""
     from ..cosim.components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
-    from ..cosim.system import LOAD_CASES, summarize
+    from ..cosim.loads import LOAD_CASES
+    from ..cosim.master import summarize
 
     paths = {}
     per_case = {}
@@ -441,7 +445,7 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     """
     from ..params import load_parameter_set
     from ..cosim.sweep import dask_client, raise_failures, run_tasks
-    from ..cosim.system import SystemSettings
+    from ..cosim.master import SystemSettings
     from ..report.system import write_system_page
 
     out = Path(out_dir)

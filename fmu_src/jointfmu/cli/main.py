@@ -164,7 +164,7 @@ def _cmd_export_ssv(args: argparse.Namespace) -> int:
 
 # --- export-ssp (the system as an SSP 1.0 package, see cosim/ssp.py) ------------------------------
 def _args_export_ssp(p: argparse.ArgumentParser) -> None:
-    from ..cosim.system import LOAD_CASES
+    from ..cosim.loads import LOAD_CASES
     from .demo import add_system_options
 
     p.add_argument("params", metavar="PARAMS", help="parameter file of the build (the structure)")

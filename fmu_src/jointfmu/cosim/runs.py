@@ -7,9 +7,12 @@ from pathlib import Path
 
 import numpy as np
 
+from ..fmu.info import read_fmu_info
+from ..params import load_parameter_set
 from .components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
-from .system import (FmuStructure, SystemSettings, equivalent_linear_structure, rms, run_system,
-                     settings_from_dict, summarize, write_history)
+from .master import (SystemSettings, rms, run_system, settings_from_dict, summarize,
+                     write_history)
+from .structures import FmuComponent, equivalent_linear_structure
 
 __all__ = ["run_case"]
 
@@ -18,7 +21,8 @@ def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=Non
              history_path=None, linear: bool = True) -> dict:
     """One system run as a self-contained task (what a sweep worker calls).
 
-    Loads the parameter set and the FMU itself, runs :func:`run_system`, writes the time
+    Loads the parameter set and the FMU itself, runs :func:`.master.run_system` (or
+    :func:`.components.run_system_of_fmus` with ``components="fmu"``), writes the time
     histories (Parquet) when ``history_path`` is given, and, with ``linear``, runs the
     equivalent-linear structure at the run's own sine-equivalent modal amplitudes
     (``sqrt(2)`` times the RMS of each ``mode[i].q``) through the same loop and reports how far
@@ -30,12 +34,8 @@ def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=Non
         :func:`summarize` plus identity (``build``, ``set_id``, ``params_hash``, ``case``,
         ``controller``), settings and the ``lin_*`` columns.
     """
-    from ..params import load_parameter_set
-
     s = settings if isinstance(settings, SystemSettings) else settings_from_dict(settings or {})
     if params_path is None:  # the parameter set bundled in the FMU
-        from ..fmu.info import read_fmu_info
-
         ps = read_fmu_info(fmu_path)["params"]
     else:
         ps = load_parameter_set(params_path)
@@ -45,7 +45,7 @@ def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=Non
             ctrl = build_controller_fmu(Path(d) / "controller.fmu", s.controller)
             run = run_system_of_fmus(fmu_path, loads, ctrl, controller_on, s, case=case)
     else:
-        with FmuStructure(fmu_path, instance_name=f"{case}") as st:
+        with FmuComponent(fmu_path, instance_name=f"{case}") as st:
             run = run_system(st, case, controller_on, s)
     row = {"build": ps.build, "set_id": ps.set_id, "params_hash": ps.short_hash(), "case": case,
            "controller": bool(controller_on), "step": s.step,

@@ -45,6 +45,10 @@ from xml.etree import ElementTree as ET
 
 from ..errors import BuildError, InputError
 from ..fileio import atomic_write, check_output_path
+from ..params import load_parameter_set
+from .components import build_controller_fmu, build_loads_fmu
+from .loads import LOAD_CASES
+from .master import SystemSettings, system_connections
 
 __all__ = [
     "SSD_NS",
@@ -138,7 +142,6 @@ def system_description(params, case: str, controller_on: bool, settings, *,
     from ..fmu.build import format_real
     from ..fmu.ssv import SSC_NS, units_element
     from ..fmu.variables import variable_table
-    from .system import LOAD_CASES
 
     s = settings
     stop = s.resolved_duration(case)
@@ -154,10 +157,8 @@ def system_description(params, case: str, controller_on: bool, settings, *,
     components = ("structure", "loads") + (("damper",) if controller_on else ())
     sources = {c: f"resources/{c}.fmu" for c in components}
     sources.update(fmu_names or {})
-    connections = [("loads", "base.acceleration", "structure", "base.acceleration")]
-    if controller_on:
-        connections += [("structure", f"point.{point}.v", "damper", "velocity"),
-                        ("damper", "force", "structure", f"point.{point}.force")]
+    connections = [(c.source, c.output, c.target, c.input)
+                   for c in system_connections(point, controller_on)]
 
     for prefix, ns in (("ssd", SSD_NS), ("ssc", SSC_NS), ("osp", OSP_NS), ("oms", OMS_NS)):
         ET.register_namespace(prefix, ns)
@@ -282,12 +283,12 @@ def export_ssp(params_path: str | os.PathLike, case: str, controller_on: bool,
     params_path : path-like
         Parameter file of the build.
     case : str
-        Load case (a key of :data:`.system.LOAD_CASES`).
+        Load case (a key of :data:`.loads.LOAD_CASES`).
     controller_on : bool
     output : path-like
         The ``.ssp`` file to write.
     settings : SystemSettings, optional
-        Step, duration, seed, level and controller (default :class:`.system.SystemSettings`).
+        Step, duration, seed, level and controller (default :class:`.master.SystemSettings`).
     binary : str, optional
         The structure FMU's binary (see :func:`.fmu.build.build_fmu`).
 
@@ -306,10 +307,6 @@ def export_ssp(params_path: str | os.PathLike, case: str, controller_on: bool,
     """
     from ..fmu.build import build_fmu
     from ..fmu.ssv import parameter_values_ssv
-    from ..params import load_parameter_set
-    from .components import build_controller_fmu, build_loads_fmu
-    from .system import LOAD_CASES, SystemSettings
-
     out = Path(output)
     if out.suffix.lower() != ".ssp":
         raise InputError(f"output {str(out)!r} must end in '.ssp'")

@@ -21,7 +21,7 @@ of the first mode alone, per build) run the same way, one task per build
 
 Each task opens its own FMU in the worker process: nothing but paths and numbers travels to the
 workers.  pythonfmu shares Python modules by name inside a process; every jointfmu FMU has its own
-model identifier and bundled package name (see :mod:`.build`), so one worker can run several
+model identifier and bundled package name (see :mod:`jointfmu.fmu.build`), so one worker can run several
 builds.
 """
 from __future__ import annotations
@@ -35,8 +35,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Mapping, Sequence
 
-from ..fileio import atomic_write
+from ..analysis.runners import FmuRunner
+from ..analysis.summary import FULL_RING_DOWNS, QUICK_RING_DOWNS
 from ..errors import InputError, SimulationError
+from ..fileio import atomic_write
+from ..params import load_parameter_set
+from .loads import LOAD_CASES
+from .master import SystemSettings
+from .runs import run_case
+from .structures import pin_pythonfmu
 
 __all__ = [
     "Task",
@@ -177,7 +184,7 @@ def dask_client(scheduler: str | None = None, n_workers: int = DEFAULT_WORKERS,
     if not (isinstance(n_workers, int) and n_workers >= 1):
         raise InputError(f"workers = {n_workers!r}: allowed is an integer >= 1")
     # Worker processes are spawned with this process's sys.path; leave out the resources
-    # folders that loading FMUs put there (see system.pin_pythonfmu), else a worker could
+    # folders that loading FMUs put there (see structures.pin_pythonfmu), else a worker could
     # import pythonfmu from an FMU's copy and then fail to build FMUs.
     saved = list(sys.path)
     sys.path[:] = [p for p in sys.path if not _is_fmu_resources(p)]
@@ -336,7 +343,7 @@ def system_tasks(builds: Sequence[tuple[Any, Any]], cases: Iterable[str],
     builds : sequence of (params path, FMU path)
         Each build's parameter file and its built FMU.
     cases : iterable of str
-        Load-case names (keys of :data:`.system.LOAD_CASES`).
+        Load-case names (keys of :data:`.loads.LOAD_CASES`).
     controller : iterable of bool
         Controller off and/or on.
     settings : SystemSettings, optional
@@ -350,10 +357,6 @@ def system_tasks(builds: Sequence[tuple[Any, Any]], cases: Iterable[str],
     list of Task
         Keys ``<params hash12>:<case>:ctrl-<on|off>:<settings digest>``.
     """
-    from ..params import load_parameter_set
-    from .runs import run_case
-    from .system import LOAD_CASES, SystemSettings
-
     s = settings or SystemSettings()
     cases = list(cases)
     for c in cases:
@@ -385,8 +388,6 @@ def _ring_down_key(params, impulses, dt, n_steps) -> tuple:
 
 def _fmu_runner():
     """The characterization report's FMU ring-down runner."""
-    from ..analysis.runners import FmuRunner
-
     return FmuRunner()
 
 
@@ -435,24 +436,17 @@ class CachedRunner:
         return self.fallback(params, impulses, dt, n_steps)
 
 
-def _report_kwargs(quick: bool) -> dict:
-    # The reduced size write_report(quick=True) uses (report.py).  Should the two drift apart,
-    # the prefetched ring-downs simply miss the cache and are recomputed: slower, never wrong.
-    return {"end": 0.2, "samples_per_period": 24.0} if quick else {}
-
-
 def characterize_task(params_path, quick: bool = False) -> list:
     """Ring-downs of one build, as the characterization report asks for them (worker task).
 
-    Runs :func:`.analysis.summary.summarize_build` with the FMU runner and returns every ring-down it
-    made as ``(key, RingDown)`` pairs.
+    Runs the report's :class:`~jointfmu.analysis.summary.RingDownPlan` (quick or full,
+    the same object the report uses) with the FMU runner and returns every ring-down it made
+    as ``(key, RingDown)`` pairs.
     """
-    from ..analysis.summary import summarize_build
-    from .system import pin_pythonfmu
-
     pin_pythonfmu()    # before any FMU of an earlier task could shadow it
     rec = _RecordingRunner(_fmu_runner())
-    summarize_build(params_path, rec, **_report_kwargs(quick))
+    plan = QUICK_RING_DOWNS if quick else FULL_RING_DOWNS
+    plan.run(load_parameter_set(params_path), rec)
     return rec.records
 
 
@@ -461,7 +455,7 @@ def prefetch_ring_downs(param_files: Sequence, client=None, *, quick: bool = Fal
     """Compute the characterization ring-downs of every build in parallel.
 
     One task per build on the Dask ``client`` (or in this process when None); the result feeds
-    :class:`CachedRunner`, which :func:`.report.write_report` then uses.
+    :class:`CachedRunner`, which :func:`jointfmu.report.characterization.write_report` then uses.
 
     Returns
     -------

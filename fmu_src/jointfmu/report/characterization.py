@@ -24,7 +24,8 @@ import numpy as np
 
 from ..analysis import characterize as C
 from ..analysis.runners import FmuRunner, get_runner
-from ..analysis.summary import BuildSummary, as_parameter_set, summarize_build
+from ..analysis.summary import (FULL_RING_DOWNS, QUICK_RING_DOWNS, BuildSummary,
+                                as_parameter_set, summarize_build)
 from ..errors import InputError
 from ..analysis.linear import equivalent_linear
 from ..fileio import check_output_path, swap_into_place
@@ -394,8 +395,9 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
     runner : Runner, "fmu", "core" or None
         Who simulates the ring-downs (default the FMU built from each set).
     quick : bool
-        Reduced size for tests and a first look: ring-downs only down to 0.2 phimax, 24 samples
-        per period (the Hilbert estimates then cover 0.2..~1 phimax only).
+        Reduced size for tests and a first look: the ring-downs of
+        :data:`jointfmu.analysis.summary.QUICK_RING_DOWNS` (down to 0.2 phimax, 24 samples per
+        period; the Hilbert estimates then cover 0.2..~1 phimax only).
 
     Returns
     -------
@@ -417,8 +419,8 @@ def write_report(params_list: Sequence, out_dir: str | os.PathLike | None = None
     target = Path(out_dir) if out_dir is not None else DEFAULT_REPORT_DIR
     check_output_path(target, "folder", "report folder")
     run = get_runner(runner, default="fmu")
-    kw = {"end": 0.2, "samples_per_period": 24.0} if quick else {}
-    summaries = [summarize_build(p, run, **kw) for p in sets]
+    plan = QUICK_RING_DOWNS if quick else FULL_RING_DOWNS
+    summaries = [summarize_build(p, run, plan=plan) for p in sets]
     target.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
     os.chmod(tmp, 0o755)  # mkdtemp makes it private; a report is meant to be read

@@ -95,7 +95,7 @@ def _fig_linear(df, path: Path) -> Path:
     """Equivalent-linear against nonlinear tip RMS, every run."""
     import numpy as np
 
-    from ..cosim.system import G0
+    from ..cosim.loads import G0
 
     fig, ax = new_figure((4.8, 4.2))
     for on, mk in ((False, "o"), (True, "s")):
@@ -116,7 +116,7 @@ def _fig_history(df, builds, worst_case, history_dir: Path, path: Path) -> Path:
     """Tip acceleration of the worst case over time, every build, controller off and on."""
     import pandas as pd
 
-    from ..cosim.system import G0
+    from ..cosim.loads import G0
 
     fig, axes = new_figure((9, 2.3 * len(builds)), len(builds), 1, sharex=True, squeeze=False)
     for ax, b in zip(axes[:, 0], builds):
@@ -192,7 +192,8 @@ def write_system_page(table, out_dir, history_dir=None, title="System co-simulat
         ``page``, ``summary_csv`` and each figure (``fig_tip``, ``fig_energy``, ``fig_linear``,
         and ``fig_history`` when the histories are there).
     """
-    from ..cosim.system import LOAD_CASES, ControllerSettings
+    from ..cosim.controller import ControllerSettings
+    from ..cosim.loads import LOAD_CASES
 
     out = Path(out_dir)
     df = table.sort_values(["build", "case", "controller"]).reset_index(drop=True)
