@@ -186,3 +186,19 @@ def test_existing_scheduler_by_address(tasks, tmp_path, dask_local_client):
     a = run_tasks(few, tmp_path / "remote.parquet", scheduler=address, progress=False)
     b = run_tasks(few, tmp_path / "loop.parquet", executor="loop", progress=False)
     pd.testing.assert_frame_equal(_norm(a.table), _norm(b.table), check_exact=True)
+
+
+def test_prefetched_ring_downs_are_the_ones_the_quick_report_asks_for(tmp_path):
+    # the sweep computes ahead the report's ring-downs (one plan, analysis.characterize): a
+    # quick report served from them computes nothing itself
+    from jointfmu.analysis.characterize import QUICK_RING_DOWNS, CoreRunner
+    from jointfmu.cosim.sweep import CachedRunner, _RecordingRunner
+    from jointfmu.params import load_parameter_set
+    from jointfmu.report.characterization import write_report
+
+    ps = load_parameter_set(EXAMPLES / "tray_nominal.toml")
+    rec = _RecordingRunner(CoreRunner())
+    QUICK_RING_DOWNS.run(ps, rec)
+    runner = CachedRunner(dict(rec.records), fallback=CoreRunner())
+    write_report([ps], tmp_path / "report", runner=runner, quick=True)
+    assert (runner.hits, runner.misses) == (2, 0)

@@ -18,6 +18,7 @@ References outside the product:
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -28,8 +29,9 @@ pytest.importorskip("pythonfmu")
 
 from jointfmu.fmu.build import build_fmu
 from jointfmu.fmu.run import run_fmu
-from jointfmu.errors import InputError  # noqa: E402
+from jointfmu.errors import InputError, SimulationError  # noqa: E402
 from jointfmu.params import load_parameter_set, save_parameter_set  # noqa: E402
+from jointfmu.cosim.component import PythonComponent  # noqa: E402
 from jointfmu.cosim.controller import ActiveDamper, ControllerSettings  # noqa: E402
 from jointfmu.cosim.loads import G0, LOAD_CASES, base_motion  # noqa: E402
 from jointfmu.cosim.master import SystemSettings, run_system  # noqa: E402
@@ -316,3 +318,117 @@ def test_loads_fmu_for_another_step_is_refused(nominal_fmu, tmp_path):
     with pytest.raises(InputError, match="holds case 'curb_strike'"):
         run_system_of_fmus(nominal_fmu, loads, ctrl, True, SystemSettings(duration=0.01),
                            case="motor_sweep")
+
+
+# ----------------------------------------------------------------------- the master loop
+def _integrator():
+    """x' = u with u held over the step: x <- x + h u (exact for a held input)."""
+    s = {"x": 1.0, "u": 0.0}
+
+    def step(t, h):
+        s["x"] = s["x"] + h * s["u"]
+
+    return PythonComponent("the integrator", {"u": lambda v: s.__setitem__("u", v)},
+                           {"x": lambda: s["x"]}, step)
+
+
+def _gain(a):
+    """Direct feedthrough: out = -a * in, of the input held since the last set."""
+    s = {"in": 0.0}
+    return PythonComponent("the gain", {"in": lambda v: s.__setitem__("in", v)},
+                           {"out": lambda: -a * s["in"]}, lambda t, h: None)
+
+
+def test_master_loop_is_jacobi_with_zero_order_hold():
+    # x' = -a x closed through a feedthrough gain.  Jacobi with zero-order hold (derived here):
+    # at t_k the gain's output is -a times the x it was given at t_{k-1}, so
+    # x_{k+1} = x_k + h (-a x_{k-1}), x_{-1} = 0 (the gain's input starts at 0).
+    from jointfmu.cosim.master import Connection, co_simulate
+
+    a, t = 30.0, np.arange(41) * 1e-2
+    hist, _ = co_simulate({"int": _integrator(), "gain": _gain(a)},
+                          [Connection("int", "x", "gain", "in"), Connection("gain", "out", "int", "u")],
+                          t, {"x": ("int", "x"), "f": ("gain", "out")})
+    x = [1.0]
+    prev = 0.0
+    for k in range(40):
+        h = t[k + 1] - t[k]
+        x.append(x[k] + h * (-a * prev))
+        prev = x[k]
+    np.testing.assert_array_equal(hist["x"], x)
+    np.testing.assert_array_equal(hist["time"], t)
+    assert hist["f"][0] == 0.0 and hist["f"][1] == -a * 1.0
+
+
+@pytest.mark.parametrize("connections,record,times,match", [
+    ([("nope", "x", "gain", "in")], {}, None, "no component 'nope'; components: int, gain"),
+    ([("int", "v", "gain", "in")], {}, None, "'v' is not an output of the integrator; outputs: x"),
+    ([("int", "x", "gain", "u")], {}, None, "'u' is not an input of the gain; inputs: in"),
+    ([("int", "x", "gain", "in"), ("gain", "out", "gain", "in")], {}, None,
+     "input gain.in is already fed by another connection"),
+    ([], {"time": ("int", "x")}, None, "'time' is the name of the communication points"),
+    ([], {"x": ("int", "x")}, [0.0, 0.1, 0.1], "strictly increasing"),
+])
+def test_master_loop_bad_wiring(connections, record, times, match):
+    from jointfmu.cosim.master import Connection, co_simulate
+
+    with pytest.raises(InputError, match=re.escape(match)):
+        co_simulate({"int": _integrator(), "gain": _gain(1.0)},
+                    [Connection(*c) for c in connections],
+                    np.arange(4) * 0.1 if times is None else times, record)
+
+
+def test_master_loop_reports_a_refused_step():
+    from jointfmu.cosim.master import Connection, co_simulate
+
+    def step(t, h):
+        if t > 0.15:
+            raise ValueError("out of range")
+
+    bad = PythonComponent("the bad one", {"u": lambda v: None}, {}, step)
+    with pytest.raises(SimulationError,
+                       match=re.escape("component 'bad': step at t = 0.2 s failed: "
+                                       "ValueError: out of range")):
+        co_simulate({"int": _integrator(), "bad": bad}, [Connection("int", "x", "bad", "u")],
+                    [0.0, 0.1, 0.2, 0.3], {})
+
+
+def test_structure_refusing_a_step_is_a_simulation_error(nominal_fmu):
+    # the structure FMU refuses a NaN input at doStep (fmi2Discard, FMI 2.0 sec. 4.2.3)
+    s = SystemSettings(duration=0.01)
+    t, a = base_motion("curb_strike", s.step, 0.01)
+    a[50] = float("nan")
+    with FmuComponent(nominal_fmu) as st:
+        with pytest.raises(SimulationError, match=r"component 'structure': step at t = 0\.005 s "
+                                                  r"failed: nominal\.fmu: "):
+            run_system(st, "curb_strike", False, s, base_acc=a)
+
+
+def test_system_connections_match_the_fmus(nominal_fmu, tmp_path):
+    # the public connection list of the demo system against the three FMUs' model descriptions
+    # (FMI 2.0 sec. 2.2.7: causality input/output), and each component FMU carrying blocks.py
+    import zipfile
+
+    from fmpy import read_model_description
+
+    import jointfmu.cosim.blocks as blocks
+    from jointfmu.cosim.components import build_controller_fmu, build_loads_fmu
+    from jointfmu.cosim.master import SYSTEM_CONNECTIONS
+
+    s = SystemSettings(duration=0.01)
+    fmus = {"structure": nominal_fmu, "loads": build_loads_fmu("curb_strike", tmp_path / "l.fmu", s),
+            "controller": build_controller_fmu(tmp_path / "c.fmu")}
+    causality = {name: {v.name: v.causality for v in read_model_description(str(f)).modelVariables}
+                 for name, f in fmus.items()}
+    assert [str(c) for c in SYSTEM_CONNECTIONS] == [
+        "loads.base.acceleration -> structure.base.acceleration",
+        "controller.force -> structure.point.psu_foot.force",
+        "structure.point.psu_foot.v -> controller.velocity"]
+    for c in SYSTEM_CONNECTIONS:
+        assert causality[c.source][c.output] == "output", str(c)
+        assert causality[c.target][c.input] == "input", str(c)
+    text = Path(blocks.__file__).read_text(encoding="utf-8")
+    for name in ("loads", "controller"):
+        with zipfile.ZipFile(fmus[name]) as z:
+            copies = [n for n in z.namelist() if n.startswith("resources/jf_blocks_")]
+            assert len(copies) == 1 and z.read(copies[0]).decode("utf-8") == text

@@ -6,7 +6,8 @@ Steps (each is also a command of its own):
 2. ``jointfmu build``      build their FMUs;
 3. ``jointfmu report``     characterization report comparing the builds;
 4. ``jointfmu sweep``      every build x load case x controller off/on through the co-simulation
-   system (:mod:`.system`) on Dask (:mod:`.sweep`); ``jointfmu cosim`` is one such run;
+   system (:mod:`jointfmu.cosim.master`) on Dask (:mod:`jointfmu.cosim.sweep`); ``jointfmu
+   cosim`` is one such run;
 5. ``jointfmu linearize``  equivalent-linear models for the controls team at the amplitude that
    matters: per build, the sine-equivalent modal amplitudes (sqrt(2) x RMS of each mode) of the
    load case with the largest RMS tip acceleration, controller off;

@@ -191,7 +191,7 @@ def _cmd_export_ssp(args: argparse.Namespace) -> int:
     return 0
 
 
-# --- cosim, sweep, demo (system co-simulation and sweeps, see system.py, sweep.py, demo.py) -------
+# --- cosim, sweep, demo (system co-simulation and sweeps, see cosim/, demo.py) -------------------
 def _args_cosim(p: argparse.ArgumentParser) -> None:
     from .demo import add_cosim_args
     add_cosim_args(p)

@@ -12,7 +12,8 @@ uses (FMI 2.0 sec. 4.2: set inputs, ``fmi2DoStep``, get outputs):
   unknown name is an :class:`~jointfmu.errors.InputError` naming the component and the allowed
   names;
 * ``set(refs, values)``: hold input values over the next step;
-* ``get(refs) -> list of float``: output values at the current communication point;
+* ``get(refs) -> list of float``: output values at the current communication point (an FMU
+  that answers either with an error status raises :class:`~jointfmu.errors.SimulationError`);
 * ``do_step(t, h) -> (ok, message)``: advance from ``t`` to ``t + h`` [s]; a refused step is
   reported, not raised (as ``fmi2DoStep`` returns a status), and the master raises;
 * ``close()``: free what the component holds (also on leaving a ``with`` block).

@@ -26,7 +26,7 @@ from typing import Sequence
 import numpy as np
 
 from ..analysis.linear import available_inputs, available_outputs, equivalent_linear
-from ..errors import InputError
+from ..errors import InputError, SimulationError
 from .component import Component
 
 __all__ = ["FmuComponent", "LinearStructure", "equivalent_linear_structure", "pin_pythonfmu"]
@@ -168,10 +168,18 @@ class FmuComponent(Component):
 
     def set(self, refs: _FmuRefs, values) -> None:
         refs.buf[:] = values
-        self._set_real(self._component, refs.vr, refs.n, refs.buf)
+        try:
+            self._set_real(self._component, refs.vr, refs.n, refs.buf)
+        except Exception as exc:  # noqa: BLE001 - fmpy raises on an error status
+            raise SimulationError(f"{self.path.name}: setting inputs failed: "
+                                  + ("; ".join(self.messages[-3:]) or str(exc))) from None
 
     def get(self, refs: _FmuRefs) -> list:
-        self._get_real(self._component, refs.vr, refs.n, refs.buf)
+        try:
+            self._get_real(self._component, refs.vr, refs.n, refs.buf)
+        except Exception as exc:  # noqa: BLE001 - fmpy raises on an error status
+            raise SimulationError(f"{self.path.name}: reading outputs failed: "
+                                  + ("; ".join(self.messages[-3:]) or str(exc))) from None
         return refs.buf[:]
 
     def do_step(self, t: float, h: float) -> tuple[bool, str]:

@@ -21,8 +21,8 @@ of the first mode alone, per build) run the same way, one task per build
 
 Each task opens its own FMU in the worker process: nothing but paths and numbers travels to the
 workers.  pythonfmu shares Python modules by name inside a process; every jointfmu FMU has its own
-model identifier and bundled package name (see :mod:`jointfmu.fmu.build`), so one worker can run several
-builds.
+model identifier and bundled package name (see :mod:`jointfmu.fmu.build`), so one worker can
+run several builds.
 """
 from __future__ import annotations
 
