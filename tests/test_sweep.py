@@ -189,9 +189,10 @@ def test_existing_scheduler_by_address(tasks, tmp_path, dask_local_client):
 
 
 def test_prefetched_ring_downs_are_the_ones_the_quick_report_asks_for(tmp_path):
-    # the sweep computes ahead the report's ring-downs (one plan, analysis.characterize): a
+    # the sweep computes ahead the report's ring-downs (one plan, analysis.summary): a
     # quick report served from them computes nothing itself
-    from jointfmu.analysis.characterize import QUICK_RING_DOWNS, CoreRunner
+    from jointfmu.analysis.characterize import CoreRunner
+    from jointfmu.analysis.summary import QUICK_RING_DOWNS
     from jointfmu.cosim.sweep import CachedRunner, _RecordingRunner
     from jointfmu.params import load_parameter_set
     from jointfmu.report.characterization import write_report
