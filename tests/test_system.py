@@ -394,7 +394,7 @@ def test_master_loop_reports_a_refused_step():
 
 
 def test_structure_refusing_a_step_is_a_simulation_error(nominal_fmu):
-    # the structure FMU refuses a NaN input at doStep (fmi2Discard, FMI 2.0 sec. 4.2.3)
+    # the structure FMU refuses a NaN input at doStep (fmi2Discard, FMI 2.0 sec. 4.2.2, from memory)
     s = SystemSettings(duration=0.01)
     t, a = base_motion("curb_strike", s.step, 0.01)
     a[50] = float("nan")
@@ -432,3 +432,13 @@ def test_system_connections_match_the_fmus(nominal_fmu, tmp_path):
         with zipfile.ZipFile(fmus[name]) as z:
             copies = [n for n in z.namelist() if n.startswith("resources/jf_blocks_")]
             assert len(copies) == 1 and z.read(copies[0]).decode("utf-8") == text
+
+
+def test_closed_fmu_component_refuses_calls(nominal_fmu):
+    # an FMI call on a freed instance is undefined (FMI 2.0 sec. 2.1.5, from memory: after
+    # fmi2FreeInstance the instance is gone); the component refuses instead
+    with FmuComponent(nominal_fmu) as st:
+        refs = st.refs(["point.tip.a"], "output")
+    assert st.do_step(0.0, 1e-4) == (False, "nominal.fmu: the instance is closed")
+    with pytest.raises(SimulationError, match="the instance is closed"):
+        st.get(refs)

@@ -167,6 +167,8 @@ class FmuComponent(Component):
         return _FmuRefs(refs)
 
     def set(self, refs: _FmuRefs, values) -> None:
+        if not self._alive:
+            raise SimulationError(f"{self.path.name}: the instance is closed")
         refs.buf[:] = values
         try:
             self._set_real(self._component, refs.vr, refs.n, refs.buf)
@@ -175,6 +177,8 @@ class FmuComponent(Component):
                                   + ("; ".join(self.messages[-3:]) or str(exc))) from None
 
     def get(self, refs: _FmuRefs) -> list:
+        if not self._alive:
+            raise SimulationError(f"{self.path.name}: the instance is closed")
         try:
             self._get_real(self._component, refs.vr, refs.n, refs.buf)
         except Exception as exc:  # noqa: BLE001 - fmpy raises on an error status
@@ -183,6 +187,8 @@ class FmuComponent(Component):
         return refs.buf[:]
 
     def do_step(self, t: float, h: float) -> tuple[bool, str]:
+        if not self._alive:   # an FMI call on a freed instance would crash the process
+            return False, f"{self.path.name}: the instance is closed"
         try:
             self._do_step(self._component, t, h, 1)
         except Exception as exc:  # noqa: BLE001 - fmpy raises on fmi2Discard/fmi2Error
