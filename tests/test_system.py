@@ -417,18 +417,18 @@ def test_system_connections_match_the_fmus(nominal_fmu, tmp_path):
 
     s = SystemSettings(duration=0.01)
     fmus = {"structure": nominal_fmu, "loads": build_loads_fmu("curb_strike", tmp_path / "l.fmu", s),
-            "controller": build_controller_fmu(tmp_path / "c.fmu")}
+            "damper": build_controller_fmu(tmp_path / "c.fmu")}
     causality = {name: {v.name: v.causality for v in read_model_description(str(f)).modelVariables}
                  for name, f in fmus.items()}
     assert [str(c) for c in SYSTEM_CONNECTIONS] == [
         "loads.base.acceleration -> structure.base.acceleration",
-        "controller.force -> structure.point.psu_foot.force",
-        "structure.point.psu_foot.v -> controller.velocity"]
+        "structure.point.psu_foot.v -> damper.velocity",
+        "damper.force -> structure.point.psu_foot.force"]
     for c in SYSTEM_CONNECTIONS:
         assert causality[c.source][c.output] == "output", str(c)
         assert causality[c.target][c.input] == "input", str(c)
     text = Path(blocks.__file__).read_text(encoding="utf-8")
-    for name in ("loads", "controller"):
+    for name in ("loads", "damper"):
         with zipfile.ZipFile(fmus[name]) as z:
             copies = [n for n in z.namelist() if n.startswith("resources/jf_blocks_")]
             assert len(copies) == 1 and z.read(copies[0]).decode("utf-8") == text
