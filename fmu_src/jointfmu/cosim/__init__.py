@@ -13,6 +13,7 @@ Modules, each one job, imported downward in this order:
 * :mod:`.master`: the master loop (``co_simulate``) over components and connections, the demo
   system (``SYSTEM_CONNECTIONS``, ``run_system``), settings, summaries, histories;
 * :mod:`.components`: the loads model and the damper built as FMUs, the system of three FMUs;
+* :mod:`.ssp`: the demo system as an SSP 1.0 package;
 * :mod:`.runs`: one system run as a self-contained task (``run_case``);
 * :mod:`.sweep`: many tasks on Dask, result tables.
 """
