@@ -399,8 +399,8 @@ def test_structure_refusing_a_step_is_a_simulation_error(nominal_fmu):
     t, a = base_motion("curb_strike", s.step, 0.01)
     a[50] = float("nan")
     with FmuComponent(nominal_fmu) as st:
-        with pytest.raises(SimulationError, match=r"component 'structure': step at t = 0\.005 s "
-                                                  r"failed: nominal\.fmu: "):
+        with pytest.raises(SimulationError, match=re.escape(
+                f"component 'structure': step at t = 0.005 s failed: {nominal_fmu.name}: ")):
             run_system(st, "curb_strike", False, s, base_acc=a)
 
 
@@ -439,6 +439,6 @@ def test_closed_fmu_component_refuses_calls(nominal_fmu):
     # fmi2FreeInstance the instance is gone); the component refuses instead
     with FmuComponent(nominal_fmu) as st:
         refs = st.refs(["point.tip.a"], "output")
-    assert st.do_step(0.0, 1e-4) == (False, "nominal.fmu: the instance is closed")
+    assert st.do_step(0.0, 1e-4) == (False, f"{nominal_fmu.name}: the instance is closed")
     with pytest.raises(SimulationError, match="the instance is closed"):
         st.get(refs)
