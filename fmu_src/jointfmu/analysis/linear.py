@@ -52,6 +52,8 @@ from scipy.optimize import brentq
 
 from ..errors import InputError
 from ..fileio import check_output_path, swap_into_place
+from ..params.names import (BASE_ACCELERATION, BASE_FORCE, mode_name, parse_name,
+                            point_name)
 from ..physics.iwan import dissipation_per_cycle, joint_constants
 
 __all__ = [
@@ -95,10 +97,10 @@ def _fmt_modes(labels) -> str:
 
 def available_inputs(params) -> tuple[str, ...]:
     """Input names a linear model of ``params`` can have, in the default order."""
-    names = [f"point.{p.label}.force" for p in params.input_points]
-    names += [f"mode[{i + 1}].force" for i in range(params.n_modes)]
+    names = [point_name(p.label, "force") for p in params.input_points]
+    names += [mode_name(i + 1, "force") for i in range(params.n_modes)]
     if params.base is not None:
-        names.append("base.acceleration")
+        names.append(BASE_ACCELERATION)
     return tuple(names)
 
 
@@ -106,21 +108,26 @@ def available_outputs(params) -> tuple[str, ...]:
     """Output names a linear model of ``params`` can have, in the default order."""
     names = []
     for p in params.output_points:
-        names += [f"point.{p.label}.x", f"point.{p.label}.v", f"point.{p.label}.a"]
+        names += [point_name(p.label, q) for q in ("x", "v", "a")]
     if params.base is not None:
-        names.append("base.force")
+        names.append(BASE_FORCE)
     for i in range(params.n_modes):
-        names += [f"mode[{i + 1}].q", f"mode[{i + 1}].qdot"]
+        names += [mode_name(i + 1, "q"), mode_name(i + 1, "qdot")]
     return tuple(names)
 
 
+def _is_modal(name: str) -> bool:
+    parsed = parse_name(name)
+    return parsed is not None and parsed.kind == "mode"
+
+
 def _default_inputs(params):
-    phys = tuple(n for n in available_inputs(params) if not n.startswith("mode["))
+    phys = tuple(n for n in available_inputs(params) if not _is_modal(n))
     return phys or available_inputs(params)  # no points and no base: the modal forces
 
 
 def _default_outputs(params):
-    phys = tuple(n for n in available_outputs(params) if not n.startswith("mode["))
+    phys = tuple(n for n in available_outputs(params) if not _is_modal(n))
     return phys or available_outputs(params)  # no points and no base: the modal coordinates
 
 
@@ -473,14 +480,15 @@ def equivalent_linear(params, amplitudes, inputs: Sequence[str] | None = None,
     G = np.zeros((n, len(ins)))
     r_in = np.zeros(len(ins))  # resultant on the base per unit input (point forces)
     base_col = np.zeros(len(ins))  # 1 for the base acceleration column
-    for k, name in enumerate(ins):
-        if name == "base.acceleration":
+    for k, name in enumerate(ins):   # names checked above against available_inputs
+        parsed = parse_name(name)
+        if parsed.kind == "base":
             G[:, k] = -mm.gamma
             base_col[k] = 1.0
-        elif name.startswith("mode["):
-            G[int(name[5:name.index("]")]) - 1, k] = 1.0
+        elif parsed.kind == "mode":
+            G[parsed.mode - 1, k] = 1.0
         else:
-            j = in_points.index(name[len("point."):-len(".force")])
+            j = in_points.index(parsed.label)
             G[:, k] = mm.phi_in[j]
             r_in[k] = mm.r_in[j]
     B = np.zeros((2 * n, len(ins)))
@@ -490,17 +498,18 @@ def equivalent_linear(params, amplitudes, inputs: Sequence[str] | None = None,
     out_points = [p.label for p in params.output_points]
     C = np.zeros((len(outs), 2 * n))
     D = np.zeros((len(outs), len(ins)))
-    for r, name in enumerate(outs):
-        if name == "base.force":
+    for r, name in enumerate(outs):   # names checked above against available_outputs
+        parsed = parse_name(name)
+        if parsed.kind == "base":
             # F_base = sum_p r_p F_p - M a_b - sum_i Gamma_i qddot_i   (modal.py)
             C[r] = -mm.gamma @ Aq
             D[r] = r_in - mm.total_mass * base_col - mm.gamma @ G
-        elif name.startswith("mode["):
-            i = int(name[5:name.index("]")]) - 1
-            C[r, 2 * i + (1 if name.endswith(".qdot") else 0)] = 1.0
+        elif parsed.kind == "mode":
+            i = parsed.mode - 1
+            C[r, 2 * i + (1 if parsed.quantity == "qdot" else 0)] = 1.0
         else:
-            label, q = name[len("point."):].rsplit(".", 1)
-            j = out_points.index(label)
+            q = parsed.quantity
+            j = out_points.index(parsed.label)
             phi = mm.phi_out[j]
             if q == "x":
                 C[r, 0::2] = phi
@@ -509,7 +518,7 @@ def equivalent_linear(params, amplitudes, inputs: Sequence[str] | None = None,
             else:  # absolute acceleration: phi qddot + r_o a_b
                 C[r] = phi @ Aq
                 D[r] = phi @ G + mm.r_out[j] * base_col
-    states = tuple(s for i in range(n) for s in (f"mode[{i + 1}].q", f"mode[{i + 1}].qdot"))
+    states = tuple(mode_name(i + 1, q) for i in range(n) for q in ("q", "qdot"))
     pm = np.array([joint_constants(m.joint.Fs, m.joint.Kt, m.joint.chi, m.joint.beta).phimax
                    for m in params.modes])
     info = {"jointfmu_version": __version__,

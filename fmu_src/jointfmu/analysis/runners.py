@@ -17,6 +17,7 @@ from typing import Protocol
 import numpy as np
 
 from ..errors import InputError, SimulationError
+from ..params.names import STEPS_PER_PERIOD, mode_name, point_name
 
 __all__ = ["RingDown", "Runner", "check_run_args", "CoreRunner", "FmuRunner", "get_runner",
            "RUNNER_NAMES"]
@@ -173,15 +174,15 @@ class FmuRunner:
 
         imp, dt, n_steps = check_run_args(params, impulses, dt, n_steps)
         fmu = self.fmu_for(params)
-        inputs = {f"mode[{i + 1}].force": [imp[i] / dt, 0.0] for i in range(params.n_modes)}
-        start = {"steps_per_period": float(self.steps_per_period)} if self.steps_per_period else None
+        inputs = {mode_name(i + 1, "force"): [imp[i] / dt, 0.0] for i in range(params.n_modes)}
+        start = {STEPS_PER_PERIOD: float(self.steps_per_period)} if self.steps_per_period else None
         header, rows = run_fmu(fmu, [0.0, dt], inputs, stop_time=n_steps * dt, step=dt,
                                start_values=start)
         r = np.asarray(rows, dtype=float)
         col = {name: k for k, name in enumerate(header)}
-        q = r[:, [col[f"mode[{i + 1}].q"] for i in range(params.n_modes)]]
+        q = r[:, [col[mode_name(i + 1, "q")] for i in range(params.n_modes)]]
         labels = tuple(p.label for p in params.output_points)
-        a = r[:, [col[f"point.{lab}.a"] for lab in labels]] if labels else np.zeros((len(r), 0))
+        a = r[:, [col[point_name(lab, "a")] for lab in labels]] if labels else np.zeros((len(r), 0))
         return RingDown(r[:, 0], q, a, labels, imp, dt, "fmu")
 
 

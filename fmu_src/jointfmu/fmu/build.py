@@ -50,7 +50,7 @@ from ..fileio import check_output_path, publish
 from ..errors import BuildError, JointFmuError
 from ..params import (ParameterSet, load_parameter_set)
 from .slave import BUILD_INFO_FILE, PARAMETER_FILE
-from .variables import UNITS, variable_table
+from .variables import DEPENDENCY_KIND, UNITS, variable_table
 
 from .bundle import (ENTRY_TEMPLATE, HOST_OPTIONAL, HOST_REQUIREMENTS, PACKAGE_DIR, check_bundle,
                      core_files, fmu_names, jointfmu_version, pythonfmu_version)
@@ -365,15 +365,23 @@ def _complete_model_description(root: ET.Element, params: ParameterSet, ident: s
         else:
             real.set("start", format_real(var.start))
 
-    # FMI 2.0 sec. 2.2.8: every output in Outputs; InitialUnknowns lists the outputs with
-    # initial="approx" or "calculated" (here all of them), in value-reference order.  Outputs
-    # change only inside doStep, so no output depends directly on an input (dependencies="").
+    # FMI 2.0 sec. 2.2.8 (schema fmi2VariableDependency.xsd): every output in Outputs, with the
+    # inputs it depends on directly at a communication point (indices are 1-based positions in
+    # ModelVariables, ascending) and how each enters ("constant": a constant factor, allowed for
+    # co-simulation outputs; see variables.DEPENDENCY_KIND).  InitialUnknowns lists the outputs
+    # with initial="calculated" (all of them), in value-reference order, with no dependencies
+    # attribute: in Initialization Mode they are taken to depend on every known.
     ms = ET.SubElement(root, "ModelStructure")
     outputs = ET.SubElement(ms, "Outputs")
     initial = ET.SubElement(ms, "InitialUnknowns")
     for k, var in enumerate(table):
         if var.is_output:
-            ET.SubElement(outputs, "Unknown", index=str(k + 1), dependencies="")
+            if not all(table[vr].is_input for vr in var.depends_on):
+                raise BuildError(f"{var.name}: dependencies {var.depends_on} must be inputs "
+                                 "(FMI 2.0 sec. 2.2.8)")
+            ET.SubElement(outputs, "Unknown", index=str(k + 1),
+                          dependencies=" ".join(str(vr + 1) for vr in var.depends_on),
+                          dependenciesKind=" ".join(DEPENDENCY_KIND for _ in var.depends_on))
             ET.SubElement(initial, "Unknown", index=str(k + 1))
     return root
 

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import math
 import os
-import re
 from functools import lru_cache
 from pathlib import Path
 from typing import Mapping, Sequence
@@ -17,7 +16,10 @@ from ..fileio import atomic_write, check_output_path
 from ..errors import InputError, ParameterError, Problem, did_you_mean
 from ..params import (MODE_VALUE_NAMES, ParameterSet, check_mode_values,
                      load_parameter_set)
-from .variables import PARAMETER_FIELDS, UNITS, variable_table
+from ..params.names import (STEPS_PER_PERIOD, mode_prefix, mode_value_names, mode_value_pattern,
+                            parse_name)
+from ..params.rules import RULES_BY_NAME
+from .variables import UNITS, variable_table
 
 from .build import default_output_path, format_real
 from .bundle import jointfmu_version
@@ -148,7 +150,6 @@ def write_ssv(params_path: str | os.PathLike, output: str | os.PathLike | None =
 
 # ------------------------------------------------------------- applying SSP parameter values
 _SSV_SCHEMA = "SystemStructureParameterValues.xsd"
-_MODE_PARAM_RE = re.compile(r"^mode\[([1-9][0-9]*)\]\.(?:(f0|zeta)|joint\.(Fs|Kt|chi|beta))$")
 
 
 @lru_cache(maxsize=None)
@@ -179,10 +180,15 @@ def _base_parameter_set(fmu_or_params) -> ParameterSet | None:
 
 
 def _allowed_parameters_text(n_modes: int | None) -> str:
-    fields = "mode[i].f0, mode[i].zeta, " + ", ".join(f"mode[i].joint.{f}"
-                                                      for f in ("Fs", "Kt", "chi", "beta"))
-    modes = f"i = 1..{n_modes}" if n_modes else "i = 1, 2, ..."
-    return f"{fields} ({modes}) and steps_per_period"
+    return f"{mode_value_pattern(n_modes)} and {STEPS_PER_PERIOD}"
+
+
+def _mode_value(name: str):
+    """(1-based mode, value name) of a mode-value name such as mode[2].joint.chi, else None."""
+    parsed = parse_name(name)
+    if parsed is None or parsed.kind != "mode_value":
+        return None
+    return parsed.mode, parsed.quantity
 
 
 def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[str, float]:
@@ -253,8 +259,7 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
         table, allowed_text = None, "not a jointfmu FMU parameter; allowed: " + \
             _allowed_parameters_text(None)
     names_for_hint = list(table) if table is not None else \
-        [f"mode[1].{f}" for f in ("f0", "zeta")] + \
-        [f"mode[1].joint.{f}" for f in ("Fs", "Kt", "chi", "beta")] + ["steps_per_period"]
+        mode_value_names(1) + [STEPS_PER_PERIOD]
 
     problems: list[Problem] = []
     values: dict[str, float] = {}
@@ -269,15 +274,14 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
                                                     "ssv:Real"))
             continue
         # name and unit
-        m = _MODE_PARAM_RE.match(name)
-        field_name = (m.group(2) or m.group(3)) if m else None
+        m = _mode_value(name)
         if table is not None:
             var = table.get(name)
             known = var is not None
             unit = var.unit if known else None
         else:
-            known = bool(m) or name == "steps_per_period"
-            unit = (PARAMETER_FIELDS[field_name][0] if m else "1") if known else None
+            known = m is not None or name == STEPS_PER_PERIOD
+            unit = (RULES_BY_NAME[m[1]].unit if m else "1") if known else None
         if not known:
             problems.append(Problem(src, name, raw, allowed_text,
                                     did_you_mean(name, names_for_hint)))
@@ -296,13 +300,13 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
                                                     "value per parameter"))
             continue
         values[name] = x
-        if name == "steps_per_period":
+        if name == STEPS_PER_PERIOD:
             if x < MIN_STEPS_PER_PERIOD:
                 problems.append(Problem(src, name, raw, f"must be a finite number >= "
                                         f"{MIN_STEPS_PER_PERIOD:g} (default "
                                         f"{DEFAULT_STEPS_PER_PERIOD:g})"))
         else:
-            overrides[(int(m.group(1)), field_name)] = x
+            overrides[m] = x
 
     if base is not None and overrides:
         try:
@@ -315,7 +319,7 @@ def read_parameter_values(path: str | os.PathLike, fmu_or_params=None) -> dict[s
             per_mode.setdefault(i, {})[f] = x
         for i, v in sorted(per_mode.items()):
             if set(v) == set(MODE_VALUE_NAMES):
-                problems += check_mode_values(i, "", source=src, field_prefix=f"mode[{i}]", **v)
+                problems += check_mode_values(i, "", source=src, field_prefix=mode_prefix(i), **v)
     if problems:
         raise ParameterError(problems)
     return values
@@ -347,10 +351,10 @@ def with_parameter_values(params: ParameterSet, values: Mapping[str, float],
     overrides: dict[tuple[int, str], float] = {}
     problems: list[Problem] = []
     for name, x in values.items():
-        m = _MODE_PARAM_RE.match(name)
+        m = _mode_value(name)
         if m:
-            overrides[(int(m.group(1)), m.group(2) or m.group(3))] = x
-        elif name != "steps_per_period":
+            overrides[m] = x
+        elif name != STEPS_PER_PERIOD:
             problems.append(Problem(source, name, x, "not a jointfmu FMU parameter; allowed: "
                                     + _allowed_parameters_text(params.n_modes)))
     if problems:

@@ -6,6 +6,15 @@ references by registration order, so the value reference of a variable is its in
 :mod:`.build` writes units, descriptions, start values and the ModelStructure of
 ``modelDescription.xml`` from the same table.  Nothing else lists variables.
 
+Names come from :mod:`jointfmu.params.names` (which also reads them back), the units, meanings and
+ranges of the six mode values from :mod:`jointfmu.params.rules`.
+
+Direct feedthrough (FMI 2.0 standard, sec. 2.2.8, ``ModelStructure/Outputs``): each output lists
+the inputs it depends on at a communication point, before the next step
+(:attr:`FmuVariable.depends_on`), from :meth:`.physics.modal.ModalModel.feedthrough`: the point
+accelerations and the base force see the inputs through the modal accelerations; states,
+displacements, velocities, joint forces and energies change only inside doStep and see none.
+
 Units (FMI 2.0 standard, sec. 2.2.2, ``UnitDefinitions``): a ``BaseUnit`` holds integer exponents
 of the SI base units, so units of mass-normalized modal quantities (``m*kg^0.5`` and its relatives,
 common practice for modal coordinates with unit modal mass) get a ``Unit`` with a name and no
@@ -16,13 +25,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Mapping, Optional
 
+from ..params.names import (BASE_ACCELERATION, BASE_FORCE, STEPS_PER_PERIOD, energy_name,
+                            mode_name, mode_value_name, point_name)
+from ..params.rules import MODE_VALUE_RULES
 from ..physics.integrate import DEFAULT_STEPS_PER_PERIOD
+from ..physics.modal import ModalModel
 
 __all__ = [
     "FmuVariable",
     "UNITS",
     "PARAMETER_FIELDS",
     "DEFAULT_STEPS_PER_PERIOD",
+    "DEPENDENCY_KIND",
     "variable_table",
     "variables_by_name",
 ]
@@ -44,18 +58,15 @@ UNITS: Mapping[str, Optional[Mapping[str, int]]] = {
     "N/kg^0.5": None,
 }
 
-#: Parameter field -> (unit, description with the admissible range of ``params.check_mode_values``).
+#: Parameter field -> (unit, description with the admissible range), from the rules table.
 PARAMETER_FIELDS: Mapping[str, tuple[str, str]] = {
-    "f0": ("Hz", "low-amplitude natural frequency, f0 > 0"),
-    "zeta": ("1", "viscous damping ratio, 0 <= zeta < 1"),
-    "Fs": ("N/kg^0.5", "Iwan joint modal slip force (onset of macro-slip), Fs > 0"),
-    "Kt": ("1/s2", "Iwan joint stiffness at zero load, 0 < Kt < (2 pi f0)^2"),
-    "chi": ("1", "Iwan density exponent (micro-slip), -1 < chi <= 0"),
-    "beta": ("1", "Iwan macro-slip point-mass ratio, beta >= 0"),
-}
+    r.name: (r.unit, r.description) for r in MODE_VALUE_RULES}
 
-_MODE_FIELDS = ("f0", "zeta")
-_JOINT_FIELDS = ("Fs", "Kt", "chi", "beta")
+#: How every direct dependency of an output enters it: a constant factor (FMI 2.0 standard,
+#: sec. 2.2.8, ``dependenciesKind="constant"``: c*v with c fixed before initialization; here c
+#: is made of mode shapes, base participations, base factors and the total mass, none of them an
+#: FMU parameter, see ModalModel.feedthrough).
+DEPENDENCY_KIND = "constant"
 
 
 @dataclass(frozen=True)
@@ -86,6 +97,10 @@ class FmuVariable:
         0-based mode or point index into the simulator's arrays; None for scalars.
     field : str or None
         Parameter field (``"f0"``, ``"zeta"``, ``"Fs"``, ``"Kt"``, ``"chi"``, ``"beta"``).
+    depends_on : tuple of int
+        Outputs: value references of the inputs the output depends on directly, before a step
+        (FMI 2.0 sec. 2.2.8), ascending; each enters with a constant factor
+        (:data:`DEPENDENCY_KIND`).  Empty for every other variable.
     """
 
     name: str
@@ -98,6 +113,7 @@ class FmuVariable:
     kind: str
     index: Optional[int] = None
     field: Optional[str] = None
+    depends_on: tuple[int, ...] = ()
 
     @property
     def is_parameter(self) -> bool:
@@ -121,9 +137,9 @@ def _input(name, unit, description, kind, index=None) -> FmuVariable:
     return FmuVariable(name, "input", "continuous", None, unit, description, 0.0, kind, index)
 
 
-def _output(name, unit, description, kind, index=None) -> FmuVariable:
+def _output(name, unit, description, kind, index=None, depends_on=()) -> FmuVariable:
     return FmuVariable(name, "output", "continuous", "calculated", unit, description, None,
-                       kind, index)
+                       kind, index, None, tuple(depends_on))
 
 
 def _mode_text(i: int, label: str) -> str:
@@ -153,61 +169,69 @@ def variable_table(params, steps_per_period: float | None = None) -> tuple[FmuVa
     modes = list(params.modes)
     for i, mode in enumerate(modes):
         what = _mode_text(i, getattr(mode, "label", ""))
-        for field in _MODE_FIELDS:
-            unit, text = PARAMETER_FIELDS[field]
-            table.append(_param(f"mode[{i + 1}].{field}", unit, f"{what}: {text}",
-                                getattr(mode, field), "parameter", i, field))
-        for field in _JOINT_FIELDS:
-            unit, text = PARAMETER_FIELDS[field]
-            table.append(_param(f"mode[{i + 1}].joint.{field}", unit, f"{what}: {text}",
-                                getattr(mode.joint, field), "parameter", i, field))
+        for rule in MODE_VALUE_RULES:
+            owner = mode.joint if rule.key.startswith("joint.") else mode
+            table.append(_param(mode_value_name(i + 1, rule.name), rule.unit,
+                                f"{what}: {rule.description}", getattr(owner, rule.name),
+                                "parameter", i, rule.name))
     table.append(_param(
-        "steps_per_period", "1",
+        STEPS_PER_PERIOD, "1",
         "internal time steps per period of each mode (>= 8; the error falls at least as its square)",
         steps_per_period, "steps_per_period"))
 
+    # inputs; u_vr: value reference of each input in the kernel's input order (point forces,
+    # modal forces, base acceleration), for the feedthrough below
+    inputs_at = len(table)
     for i, mode in enumerate(modes):
         what = _mode_text(i, getattr(mode, "label", ""))
-        table.append(_input(f"mode[{i + 1}].force", "N/kg^0.5",
+        table.append(_input(mode_name(i + 1, "force"), "N/kg^0.5",
                             f"direct modal force on {what}, held over each communication step",
                             "modal_force", i))
     for j, point in enumerate(params.input_points):
-        table.append(_input(f"point.{point.label}.force", "N",
+        table.append(_input(point_name(point.label, "force"), "N",
                             f"force at input point {point.label!r} along {_direction(point)}, "
                             "held over each communication step", "point_force", j))
     if params.base is not None:
-        table.append(_input("base.acceleration", "m/s2",
+        table.append(_input(BASE_ACCELERATION, "m/s2",
                             f"base acceleration along {_direction(params.base)}, "
                             "held over each communication step", "base_acc"))
+    n_modes, n_in = len(modes), len(params.input_points)
+    u_vr = ([inputs_at + n_modes + j for j in range(n_in)]
+            + [inputs_at + i for i in range(n_modes)]
+            + ([inputs_at + n_modes + n_in] if params.base is not None else [-1]))
+    d_a, d_base = ModalModel.from_params(params).feedthrough(structural=True)
+
+    def deps(row) -> tuple[int, ...]:
+        return tuple(sorted(u_vr[k] for k in range(len(u_vr)) if row[k] != 0.0 and u_vr[k] >= 0))
 
     for i, mode in enumerate(modes):
         what = _mode_text(i, getattr(mode, "label", ""))
-        table.append(_output(f"mode[{i + 1}].q", "m*kg^0.5",
+        table.append(_output(mode_name(i + 1, "q"), "m*kg^0.5",
                              f"modal displacement of {what} (mass-normalized)", "q", i))
-        table.append(_output(f"mode[{i + 1}].qdot", "m*kg^0.5/s",
+        table.append(_output(mode_name(i + 1, "qdot"), "m*kg^0.5/s",
                              f"modal velocity of {what} (mass-normalized)", "qdot", i))
-        table.append(_output(f"mode[{i + 1}].joint_force", "N/kg^0.5",
+        table.append(_output(mode_name(i + 1, "joint_force"), "N/kg^0.5",
                              f"Iwan joint modal restoring force of {what}", "joint_force", i))
     for j, point in enumerate(params.output_points):
         along = _direction(point)
-        table.append(_output(f"point.{point.label}.x", "m",
+        table.append(_output(point_name(point.label, "x"), "m",
                              f"displacement at output point {point.label!r} along {along}, "
                              "relative to the base", "point_x", j))
-        table.append(_output(f"point.{point.label}.v", "m/s",
+        table.append(_output(point_name(point.label, "v"), "m/s",
                              f"velocity at output point {point.label!r} along {along}, "
                              "relative to the base", "point_v", j))
-        table.append(_output(f"point.{point.label}.a", "m/s2",
+        table.append(_output(point_name(point.label, "a"), "m/s2",
                              f"absolute acceleration at output point {point.label!r} along "
-                             f"{along}", "point_a", j))
+                             f"{along}", "point_a", j, deps(d_a[j])))
     if params.base is not None:
-        table.append(_output("base.force", "N",
+        table.append(_output(BASE_FORCE, "N",
                              "force the structure exerts on its mounting along "
-                             f"{_direction(params.base)}", "base_force"))
-    table.append(_output("energy.input", "J",
+                             f"{_direction(params.base)}", "base_force", None, deps(d_base)))
+    table.append(_output(energy_name("input"), "J",
                          "work done by all inputs since the start (base frame)", "energy_input"))
-    table.append(_output("energy.joint", "J",
+    table.append(_output(energy_name("joint"), "J",
                          "energy dissipated in all Iwan joints (micro- and macro-slip) since the start", "energy_joint"))
-    table.append(_output("energy.viscous", "J",
+    table.append(_output(energy_name("viscous"), "J",
                          "energy dissipated by viscous damping since the start", "energy_viscous"))
 
     names = [v.name for v in table]

@@ -42,6 +42,8 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
 
 from ..fileio import atomic_write
 from ..errors import ParameterError, Problem, did_you_mean
+from .names import LABEL_PATTERN, mode_prefix
+from .rules import MODE_VALUE_RULES, RULES_BY_NAME, short_number
 
 __all__ = [
     "FORMAT",
@@ -65,9 +67,9 @@ FORMAT = "jointfmu-params/1"
 #: Allowed values of ``points[].role``.
 ROLES = ("input", "output", "both")
 #: Names accepted by :meth:`ParameterSet.with_mode_values` (and by FMU parameters).
-MODE_VALUE_NAMES = ("f0", "zeta", "Fs", "Kt", "chi", "beta")
+MODE_VALUE_NAMES = tuple(r.name for r in MODE_VALUE_RULES)
 
-_LABEL_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_LABEL_RE = re.compile(f"^{LABEL_PATTERN}$")
 _LABEL_RULE = "must match ^[A-Za-z][A-Za-z0-9_]*$ (a letter, then letters, digits or '_')"
 _LABEL_WHAT = "a label: a letter, then letters, digits or '_'"
 _TWO_PI = 2.0 * math.pi
@@ -96,12 +98,7 @@ _HEADER = """\
 # --------------------------------------------------------------------------------------------
 def _g(x: float) -> str:
     """Format a number with 3 significant digits, exponent without '+' or leading zeros."""
-    text = f"{x:.3g}"
-    if "e" in text:
-        mant, exp = text.split("e")
-        sign = "-" if exp.startswith("-") else ""
-        text = f"{mant}e{sign}{exp.lstrip('+-').lstrip('0') or '0'}"
-    return text
+    return short_number(x)
 
 
 def _type_name(x: Any) -> str:
@@ -171,34 +168,29 @@ def _label(x: Any, file: str, fld: str, problems: list[Problem]) -> str | None:
 # --------------------------------------------------------------------------------------------
 # shared range checks
 # --------------------------------------------------------------------------------------------
+def _check_value(name: str, x: Any, file: str, fld: str, problems: list[Problem],
+                 upper: float | None = None, context: str = "") -> float | None:
+    """One mode value against its rule (:data:`.rules.MODE_VALUE_RULES`): a finite number in
+    range, or a problem recorded (and None returned for a value that is not a number)."""
+    rule = RULES_BY_NAME[name]
+    v = _number(x, file, fld, rule.number_text, problems)
+    if v is not None:
+        bad = rule.violation(v, upper, context)
+        if bad is not None:
+            problems.append(Problem(file, fld, x, *bad))
+    return v
+
+
 def _check_joint(Fs: Any, Kt: Any, chi: Any, beta: Any, file: str, prefix: str,
                  problems: list[Problem], kt_max: float | None = None, f0: float | None = None
                  ) -> tuple[float | None, float | None, float | None, float | None]:
-    """Range checks of the four Iwan parameters (Segalman 2005, sec. 1 of physics.md)."""
-    Fs_v = _number(Fs, file, prefix + "Fs", " in N/sqrt(kg)", problems)
-    if Fs_v is not None and not Fs_v > 0.0:
-        problems.append(Problem(file, prefix + "Fs", Fs, "must satisfy Fs > 0 N/sqrt(kg)",
-                                "the modal slip force sets where macro-slip begins"))
-    Kt_v = _number(Kt, file, prefix + "Kt", " in 1/s^2", problems)
-    if Kt_v is not None:
-        if kt_max is not None and not 0.0 < Kt_v < kt_max:
-            problems.append(Problem(
-                file, prefix + "Kt", Kt,
-                f"must satisfy 0 < Kt < (2 pi f0)^2 = {_g(kt_max)} 1/s^2 (f0 = {_g(f0)} Hz)",
-                "the joint cannot be stiffer than the whole mode: Kinf = (2 pi f0)^2 - Kt must be > 0"
-                if Kt_v >= kt_max else ""))
-        elif kt_max is None and not Kt_v > 0.0:
-            problems.append(Problem(file, prefix + "Kt", Kt, "must satisfy Kt > 0 1/s^2"))
-    chi_v = _number(chi, file, prefix + "chi", "", problems)
-    if chi_v is not None and not -1.0 < chi_v <= 0.0:
-        problems.append(Problem(
-            file, prefix + "chi", chi, "must satisfy -1 < chi <= 0",
-            "chi <= -1 makes Kt and Fs infinite, Segalman 2005" if chi_v <= -1.0 else
-            "chi > 0 is outside the physical range; chi = 0 is Goodman's cubic micro-slip law"))
-    beta_v = _number(beta, file, prefix + "beta", "", problems)
-    if beta_v is not None and not beta_v >= 0.0:
-        problems.append(Problem(file, prefix + "beta", beta, "must satisfy beta >= 0"))
-    return Fs_v, Kt_v, chi_v, beta_v
+    """Range checks of the four Iwan parameters (Segalman 2005, sec. 1 of physics.md); Kt below
+    ``kt_max = (2 pi f0)^2`` when f0 is known."""
+    context = f"f0 = {_g(f0)} Hz" if f0 is not None else ""
+    return (_check_value("Fs", Fs, file, prefix + "Fs", problems),
+            _check_value("Kt", Kt, file, prefix + "Kt", problems, kt_max, context),
+            _check_value("chi", chi, file, prefix + "chi", problems),
+            _check_value("beta", beta, file, prefix + "beta", problems))
 
 
 def _mode_prefix(index: int | None, label: Any) -> str:
@@ -244,14 +236,11 @@ def check_mode_values(index: int | None, label: str, f0: Any, zeta: Any, Fs: Any
     """
     problems: list[Problem] = []
     pre = (field_prefix if field_prefix is not None else _mode_prefix(index, label)) + "."
-    f0_v = _number(f0, source, pre + "f0", " in Hz", problems)
-    if f0_v is not None and not f0_v > 0.0:
-        problems.append(Problem(source, pre + "f0", f0, "must satisfy f0 > 0 Hz"))
+    n_before = len(problems)
+    f0_v = _check_value("f0", f0, source, pre + "f0", problems)
+    if len(problems) > n_before:
         f0_v = None
-    zeta_v = _number(zeta, source, pre + "zeta", "", problems)
-    if zeta_v is not None and not 0.0 <= zeta_v < 1.0:
-        problems.append(Problem(source, pre + "zeta", zeta, "must satisfy 0 <= zeta < 1",
-                                "the viscous damping ratio of a mode that still oscillates"))
+    _check_value("zeta", zeta, source, pre + "zeta", problems)
     kt_max = (_TWO_PI * f0_v) ** 2 if f0_v is not None else None
     _check_joint(Fs, Kt, chi, beta, source, pre + "joint.", problems, kt_max, f0_v)
     return problems
@@ -778,7 +767,7 @@ class ParameterSet:
                                         f"mode index must satisfy 1 <= index <= {self.n_modes}"))
                 continue
             if name not in MODE_VALUE_NAMES:
-                problems.append(Problem(source, f"mode[{i}].{name}", value,
+                problems.append(Problem(source, f"{mode_prefix(i)}.{name}", value,
                                         "unknown mode value; allowed: " + ", ".join(MODE_VALUE_NAMES),
                                         did_you_mean(name, MODE_VALUE_NAMES)))
                 continue
@@ -790,7 +779,7 @@ class ParameterSet:
                  "beta": m.joint.beta}
             v.update(ov)
             probs = check_mode_values(i, m.label, v["f0"], v["zeta"], v["Fs"], v["Kt"], v["chi"],
-                                      v["beta"], source, field_prefix=f"mode[{i}]")
+                                      v["beta"], source, field_prefix=mode_prefix(i))
             problems += [replace(p, hint=(p.hint + "; " if p.hint else "") + f"mode {i} is {m.label!r}")
                          for p in probs]
             new_values[i] = v
@@ -1020,8 +1009,8 @@ def _parse_mode(i: int, md: Mapping[str, Any], has_base: bool, f: str,
     lab = _required(md, "label", f, pre + ".label", _LABEL_WHAT, problems)
     if lab is not None:
         _label(lab, f, pre + ".label", problems)
-    f0 = _required(md, "f0", f, pre + ".f0", "low-amplitude natural frequency in Hz, > 0", problems)
-    zeta = _required(md, "zeta", f, pre + ".zeta", "viscous damping ratio, 0 <= zeta < 1", problems)
+    f0 = _required(md, "f0", f, pre + ".f0", RULES_BY_NAME["f0"].summary, problems)
+    zeta = _required(md, "zeta", f, pre + ".zeta", RULES_BY_NAME["zeta"].summary, problems)
     gamma: float | None = 0.0
     if "base_participation" in md:
         gamma = _number(md["base_participation"], f, pre + ".base_participation", " in sqrt(kg)",
@@ -1042,9 +1031,9 @@ def _parse_mode(i: int, md: Mapping[str, Any], has_base: bool, f: str,
         return None
     jp = pre + ".joint."
     _check_keys(jt, _JOINT_KEYS, "[modes.joint]", jp, f, problems)
-    Fs = _required(jt, "Fs", f, jp + "Fs", "modal slip force in N/sqrt(kg), > 0", problems)
-    chi = _required(jt, "chi", f, jp + "chi", "-1 < chi <= 0", problems)
-    beta = _required(jt, "beta", f, jp + "beta", "beta >= 0", problems)
+    Fs = _required(jt, "Fs", f, jp + "Fs", RULES_BY_NAME["Fs"].summary, problems)
+    chi = _required(jt, "chi", f, jp + "chi", RULES_BY_NAME["chi"].summary, problems)
+    beta = _required(jt, "beta", f, jp + "beta", RULES_BY_NAME["beta"].summary, problems)
     Kt: Any = None
     kt_given = "Kt" in jt
     fm_given = "f_macro" in jt

@@ -118,3 +118,48 @@ class ModalModel:
     @property
     def n_modes(self) -> int:
         return int(self.omega0.shape[0])
+
+    def feedthrough(self, structural: bool = False) -> tuple[np.ndarray, np.ndarray]:
+        """Direct feedthrough: how the outputs at a communication point depend on the held inputs.
+
+        The state (q, q') does not change with the inputs before a step, so x, v, q, q', the
+        joint force and the energies do not depend on them; the modal accelerations do,
+        ``q_i'' = f_i(inputs) - 2 zeta_i w_i q_i' - Kinf_i q_i - F_J,i(q_i)`` with
+        ``f_i = sum_p phi_pi F_p + f_i^direct - Gamma_i a_b``, and so do the point accelerations
+        and the base force (module docstring).  Both are linear in the inputs with factors made of
+        mode shapes, base participations, base factors and the total mass, none of which is an
+        FMU parameter:
+
+            d a_o / d F_p = sum_i phi_oi phi_pi,   d a_o / d f_i = phi_oi,
+            d a_o / d a_b = r_o - sum_i phi_oi Gamma_i,
+            d F_base / d F_p = r_p - sum_i Gamma_i phi_pi,   d F_base / d f_i = -Gamma_i,
+            d F_base / d a_b = -M + sum_i Gamma_i^2.
+
+        Parameters
+        ----------
+        structural : bool
+            False: the factors above.  True: every term taken by its absolute value, so an entry
+            is zero only when no term connects the input to the output (a structural dependency;
+            a factor whose terms happen to cancel still counts).
+
+        Returns
+        -------
+        (ndarray, ndarray)
+            ``D_a``, shape (n_out, n_u): point accelerations per unit input; ``D_base``, shape
+            (n_u,): base force per unit input.  Inputs in the kernel's order: point forces
+            (n_in), direct modal forces (N), base acceleration (1; zero column without a base).
+        """
+        ab = np.abs if structural else (lambda a: a)
+        sign = 1.0 if structural else -1.0
+        n_in, n = self.phi_in.shape[0], self.n_modes
+        n_u = n_in + n + 1
+        d_a = np.zeros((self.phi_out.shape[0], n_u))
+        d_base = np.zeros(n_u)
+        d_a[:, :n_in] = ab(self.phi_out) @ ab(self.phi_in).T
+        d_a[:, n_in:n_in + n] = ab(self.phi_out)
+        d_base[n_in:n_in + n] = sign * ab(self.gamma)
+        if self.has_base:
+            d_a[:, n_in + n] = ab(self.r_out) + sign * (ab(self.phi_out) @ ab(self.gamma))
+            d_base[:n_in] = ab(self.r_in) + sign * (ab(self.phi_in) @ ab(self.gamma))
+            d_base[n_in + n] = sign * self.total_mass + float(np.sum(self.gamma ** 2))
+        return d_a, d_base
