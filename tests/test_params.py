@@ -322,7 +322,7 @@ def test_negative_zero_hashes_like_zero(tmp_path):
 # ---------------------------------------------------------------------------------------------
 def test_to_toml_escapes_awkward_text(tmp_path):
     ps = load_parameter_set(_write(tmp_path, GOOD))
-    odd = 'quote " backslash \\ tab \t newline \n bell \x07 unicode \u00e9\u2103'
+    odd = 'quote " backslash \\ tab \t newline \n cr \r unicode \u00e9\u2103 \U0001f529'
     ps2 = dataclasses.replace(ps, description=odd, provenance=Provenance(notes=odd))
     back = parse_parameter_set(tomllib.loads(ps2.to_toml()))
     assert back.description == odd and back.provenance.notes == odd
@@ -723,3 +723,126 @@ def test_cli_check_accepts_test_node(tmp_path, capsys):
     path = _write(tmp_path, WITH_NODES)
     assert cli.main(["check", str(path)]) == 0
     assert capsys.readouterr().out.startswith("OK  ")
+
+
+# ------------------------------------------------------- text that goes into XML (FMU, .ssv)
+# XML 1.0 (Fifth Edition) sec. 2.2, production [2]: a document holds only tab, line feed, carriage
+# return, U+0020..U+D7FF, U+E000..U+FFFD and U+10000..U+10FFFF.  Each free text of a parameter set
+# reaches modelDescription.xml or an .ssv, so `check` refuses the rest, naming the field.
+@pytest.mark.parametrize("field,text,code", [
+    ("structure.build", "SN-\x07", "U+0007"),
+    ("structure.build", "SN-1\n", "U+000A"),           # one line: it names files and instances
+    ("structure.description", "tray\x1b[1m", "U+001B"),
+    ("structure.description", "tray \x00", "U+0000"),
+    ("structure.description", "tray \ud800", "U+D800"),  # a surrogate
+    ("structure.description", "tray \uffff", "U+FFFF"),
+    ("structure.description", "tray \x7f", "U+007F"),
+    ("provenance.fitted_by", "lab\tteam", "U+0009"),
+    ("provenance.notes", "x\x0cy", "U+000C"),
+    ("base.direction", "z\x08", "U+0008"),
+    ("points[1] (drive).direction", "+z\r", "U+000D"),
+])
+def test_text_that_xml_cannot_hold_is_refused_naming_the_field(tmp_path, field, text, code):
+    d = tomllib.loads(GOOD)
+    if field.startswith("points"):
+        d["points"][0]["direction"] = text
+    else:
+        table, key = field.split(".")
+        d[table][key] = text
+    with pytest.raises(ParameterError) as exc:
+        parse_parameter_set(d, "f.toml")
+    (p,) = exc.value.problems
+    assert p.field == field and p.value == text
+    assert f"is {code}" in p.allowed and "XML 1.0 sec. 2.2" in p.allowed
+
+
+@pytest.mark.parametrize("field", ["structure.description", "provenance.notes",
+                                   "provenance.source_data"])
+def test_line_breaks_and_tabs_allowed_in_free_text(field):
+    d = tomllib.loads(GOOD)
+    table, key = field.split(".")
+    d[table][key] = "first line\n\tsecond line\r\nthird, caf\u00e9 \u2103 \U0001f529"
+    ps = parse_parameter_set(d)
+    assert getattr(ps if table == "structure" else ps.provenance, key) == d[table][key]
+
+
+def test_dataclass_refuses_control_characters():
+    with pytest.raises(ParameterError, match=r"provenance\.fitted_by = 'a\\x07': character 2 is "
+                                             r"U\+0007"):
+        Provenance(fitted_by="a\x07")
+
+
+def test_cli_check_names_a_control_character_in_build(tmp_path, capsys):
+    bad = _write(tmp_path, _sub(GOOD, 'build = "T-1"', 'build = "T-\\u0007"'), "bad.toml")
+    assert cli.main(["check", str(bad)]) == 1
+    out = capsys.readouterr().out
+    assert "structure.build = 'T-\\x07': character 3 is U+0007" in out
+
+
+# ------------------------------------------------------------------- the rules table
+def test_rules_table_states_each_range_once():
+    """params/rules.py: the range text of each mode value is the one the checks, the FMU
+    parameter descriptions and the missing-key messages use (issue 9: one rules table)."""
+    from jointfmu.params.rules import MODE_VALUE_RULES
+    from jointfmu.fmu.variables import PARAMETER_FIELDS
+
+    expected = {"f0": "f0 > 0", "zeta": "0 <= zeta < 1", "Fs": "Fs > 0",
+                "Kt": "0 < Kt < (2 pi f0)^2", "chi": "-1 < chi <= 0", "beta": "beta >= 0"}
+    assert {r.name: r.rule() for r in MODE_VALUE_RULES} == expected
+    assert tuple(r.name for r in MODE_VALUE_RULES) == ("f0", "zeta", "Fs", "Kt", "chi", "beta")
+    for r in MODE_VALUE_RULES:
+        assert PARAMETER_FIELDS[r.name] == (r.unit, r.description)
+        assert r.description.endswith(expected[r.name]) and r.source
+
+
+@pytest.mark.parametrize("name,value,upper,allowed", [
+    # the boundaries themselves: open and closed ends
+    ("chi", -1.0, None, "must satisfy -1 < chi <= 0"),
+    ("chi", 0.0, None, None),
+    ("zeta", 0.0, None, None),
+    ("zeta", 1.0, None, "must satisfy 0 <= zeta < 1"),
+    ("beta", 0.0, None, None),
+    ("Fs", 0.0, None, "must satisfy Fs > 0 N/sqrt(kg)"),
+    ("Kt", 2.0e6, 1.579e6, "must satisfy 0 < Kt < (2 pi f0)^2 = 1.58e6 1/s^2"),
+    ("Kt", 2.0e6, None, None),                    # the bound set by f0 is unknown: not checked
+    ("Kt", -1.0, None, "must satisfy Kt > 0 1/s^2"),
+    ("f0", 0.0, None, "must satisfy f0 > 0 Hz"),
+])
+def test_rule_boundaries(name, value, upper, allowed):
+    from jointfmu.params.rules import RULES_BY_NAME
+
+    got = RULES_BY_NAME[name].violation(value, upper)
+    assert (got[0] if got else None) == allowed
+
+
+# ------------------------------------------------------------------------------ names
+@pytest.mark.parametrize("name,kind,quantity,mode,label", [
+    ("mode[1].f0", "mode_value", "f0", 1, None),
+    ("mode[12].joint.chi", "mode_value", "chi", 12, None),
+    ("mode[3].q", "mode", "q", 3, None),
+    ("mode[2].joint_force", "mode", "joint_force", 2, None),
+    ("point.psu_foot.a", "point", "a", None, "psu_foot"),
+    ("point.shaker.force", "point", "force", None, "shaker"),
+    ("base.acceleration", "base", "acceleration", None, None),
+    ("energy.joint", "energy", "joint", None, None),
+    ("steps_per_period", "setting", "steps_per_period", None, None),
+])
+def test_names_parse_what_they_format(name, kind, quantity, mode, label):
+    from jointfmu.params import names
+
+    got = names.parse_name(name)
+    assert (got.kind, got.quantity, got.mode, got.label) == (kind, quantity, mode, label)
+    again = {"mode_value": lambda: names.mode_value_name(mode, quantity),
+             "mode": lambda: names.mode_name(mode, quantity),
+             "point": lambda: names.point_name(label, quantity),
+             "energy": lambda: names.energy_name(quantity)}.get(kind, lambda: name)()
+    assert again == name
+
+
+@pytest.mark.parametrize("name", ["mode[0].f0", "mode[1].Fs", "mode[1].joint.f0", "mode[x].q",
+                                  "point.1tip.a", "point.tip.acc", "base.velocity", "mode[1]",
+                                  "point.tip", "energy.stored", " mode[1].q", "mode[01].q"])
+def test_names_refuse_what_is_not_a_name(name):
+    from jointfmu.params import names
+
+    assert names.parse_name(name) is None

@@ -152,7 +152,52 @@ def _text(x: Any, file: str, fld: str, problems: list[Problem], *, required_none
     if required_nonempty and not x.strip():
         problems.append(Problem(file, fld, x, "must be a non-empty string"))
         return None
+    bad = _unwritable_character(x, multiline=fld.rpartition(".")[2] in _MULTILINE_FIELDS)
+    if bad is not None:
+        problems.append(Problem(file, fld, x, bad))
+        return None
     return x
+
+
+#: Free-text fields that may hold line breaks and tabs; every other text is one line.
+_MULTILINE_FIELDS = frozenset({"description", "notes", "source_data"})
+
+
+def _unwritable_character(text: str, *, multiline: bool) -> str | None:
+    """Why ``text`` cannot go into an XML file as it is, or None.
+
+    Every free text of a parameter set ends up in XML (modelDescription.xml of the FMU, its
+    variable descriptions, the .ssv and SSP files), whose documents may hold only the characters
+    of XML 1.0 (Fifth Edition) sec. 2.2, production [2] Char: tab, line feed, carriage return and
+    U+0020 and above, without the surrogates and U+FFFE, U+FFFF.  The other control characters
+    (Unicode category Cc) are refused as well, and in one-line fields line breaks and tabs too.
+    """
+    import unicodedata
+
+    for k, ch in enumerate(text, start=1):
+        code = ord(ch)
+        if ch in "\t\n\r":
+            if multiline:
+                continue
+        elif not (unicodedata.category(ch) in ("Cc", "Cs") or code in (0xFFFE, 0xFFFF)):
+            continue
+        allowed = ("text without control characters (line breaks and tabs allowed)" if multiline
+                   else "one line of text without control characters, line breaks or tabs")
+        return (f"character {k} is U+{code:04X} ({_character_name(ch)}); allowed is {allowed}, "
+                "because the text goes into XML files (modelDescription.xml, .ssv; XML 1.0 "
+                "sec. 2.2)")
+    return None
+
+
+def _character_name(ch: str) -> str:
+    names = {"\t": "tab", "\n": "line feed", "\r": "carriage return", "\x7f": "delete"}
+    if ch in names:
+        return names[ch]
+    if 0xD800 <= ord(ch) <= 0xDFFF:
+        return "a surrogate"
+    if ord(ch) in (0xFFFE, 0xFFFF):
+        return "a noncharacter"
+    return "a control character"
 
 
 def _label(x: Any, file: str, fld: str, problems: list[Problem]) -> str | None:
