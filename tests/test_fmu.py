@@ -11,6 +11,7 @@ FMUs are built once per session into a temporary folder.
 """
 from __future__ import annotations
 
+import json
 import math
 import zipfile
 from pathlib import Path
@@ -51,11 +52,19 @@ def psets():
     return {name: load_parameter_set(EXAMPLES / f"{name}.toml") for name in NAMES}
 
 
+#: The status a refused call returns (FMI 2.0 sec. 2.1.3 says fmi2Error): jointfmu's native
+#: binary returns fmi2Error, pythonfmu's binary can only return fmi2Fatal (slave.py).
+REFUSED = {"native": 3, "pythonfmu": 4}
+
+
 class Slave:
     """An FMU2Slave with a log-capturing logger; inputs/outputs by name."""
 
     def __init__(self, path, instance="jf"):
         self.md = read_model_description(str(path))
+        with zipfile.ZipFile(path) as z:
+            self.binary = json.loads(z.read("resources/jointfmu_build.json"))["binary"]["kind"]
+        self.refused = REFUSED[self.binary]
         self.vr = {v.name: v.valueReference for v in self.md.modelVariables}
         self.outputs = [v.name for v in self.md.modelVariables if v.causality == "output"]
         self.inputs = [v.name for v in self.md.modelVariables if v.causality == "input"]
@@ -426,6 +435,8 @@ def test_serialized_state_into_new_instance_bit_exact(slave_of):
 
 
 def test_state_of_other_build_rejected_with_message(slave_of):
+    """Another build's state: refused with fmi2Error (pythonfmu's binary: fmi2Fatal), at
+    fmi2DeSerializeFMUstate or fmi2SetFMUstate, with a message; the current state kept."""
     a = slave_of("tray_nominal", "a")
     a.init()
     _drive(a, 0.0, 10, 2e-4, 5)
@@ -433,8 +444,11 @@ def test_state_of_other_build_rejected_with_message(slave_of):
     b.init()
     before = b.get()
     data = a.fmu.serializeFMUstate(a.fmu.getFMUstate())
-    b.fmu.setFMUstate(b.fmu.deSerializeFMUstate(data))
-    assert any(st == 3 and "FMU state rejected" in msg for st, msg in b.log)
+    with pytest.raises(Exception) as exc:
+        b.fmu.setFMUstate(b.fmu.deSerializeFMUstate(data))
+    assert getattr(exc.value, "status", None) == b.refused
+    assert any(st == 3 and "FMU state rejected" in msg and "avionics_tray@SN-0002" in msg
+               for st, msg in b.log)
     assert np.array_equal(b.get(), before)
 
 
@@ -445,8 +459,11 @@ def test_reset_restarts_from_instantiation(slave_of):
     s.init({"mode[1].zeta": 0.02})
     first = _drive(s, 0.0, 60, 2e-4, 6)
     s.fmu.reset()
+    s.fmu.setupExperiment(startTime=0.0)
+    s.fmu.enterInitializationMode()      # fmi2GetReal is allowed from here (sec. 4.2.4)
     zeta0 = s.fmu.getReal([s.vr["mode[1].zeta"]])[0]
-    s.init({"mode[1].zeta": 0.02})
+    s.set({"mode[1].zeta": 0.02})
+    s.fmu.exitInitializationMode()
     second = _drive(s, 0.0, 60, 2e-4, 6)
     assert np.array_equal(first, second)
     assert zeta0 != 0.02        # reset dropped the value set before it
@@ -454,8 +471,10 @@ def test_reset_restarts_from_instantiation(slave_of):
 
 # ------------------------------------------------------------------------- failures
 def test_nan_input_refused_state_kept(slave_of):
-    """NaN input: doStep does not succeed (pythonfmu reports fmi2Discard), an error-status log
-    message names the input, and the state from before the step is kept."""
+    """NaN input: doStep returns fmi2Discard, an error-status log message names the input, and
+    the state from before the step is kept.  The FMU is then in the state "step failed" (FMI 2.0
+    sec. 4.2.4): it can be read, and restoring the state saved before lets the run go on exactly
+    as if the refused step had never been asked for."""
     s = slave_of("tray_nominal")
     s.init()
     dt = 2e-4
@@ -467,8 +486,11 @@ def test_nan_input_refused_state_kept(slave_of):
         s.fmu.doStep(currentCommunicationPoint=50 * dt, communicationStepSize=dt)
     assert getattr(exc.value, "status", None) == 2          # fmi2Discard
     assert any(st == 3 and "shaker" in msg and "finite" in msg for st, msg in s.log), s.log
+    with pytest.raises(Exception) as exc:                   # nor can inputs be set now
+        s.set({"point.shaker.force": 0.0})
+    assert getattr(exc.value, "status", None) == s.refused
     assert np.array_equal(s.get(), before)
-    # continuing equals continuing from the saved state: nothing was half-applied
+    s.fmu.setFMUstate(state)
     after_nan = _drive(s, 50 * dt, 20, dt, 9)
     s.fmu.setFMUstate(state)
     clean = _drive(s, 50 * dt, 20, dt, 9)
@@ -477,11 +499,15 @@ def test_nan_input_refused_state_kept(slave_of):
 
 @pytest.mark.parametrize("field,value", [("joint.chi", 0.5), ("zeta", -0.1), ("joint.Fs", 0.0)])
 def test_out_of_range_parameter_at_instantiation(slave_of, psets, field, value):
-    """Out-of-range start value: the check message of ``jointfmu check`` through the FMI logger
-    with error status; doStep refuses to run."""
+    """Out-of-range start value: fmi2ExitInitializationMode returns fmi2Error (pythonfmu's
+    binary: fmi2Fatal) with the check message of ``jointfmu check`` through the FMI logger;
+    the FMU is then in the error state and doStep is refused (FMI 2.0 sec. 2.1.3)."""
     ps = psets["tray_nominal"]
     s = slave_of("tray_nominal")
-    s.init({f"mode[2].{field}": value})
+    with pytest.raises(Exception) as exc:
+        s.init({f"mode[2].{field}": value})
+    assert getattr(exc.value, "status", None) == s.refused
+    assert "fmi2ExitInitializationMode" in str(exc.value)
     m = ps.modes[1]
     vals = dict(f0=m.f0, zeta=m.zeta, Fs=m.joint.Fs, Kt=m.joint.Kt, chi=m.joint.chi,
                 beta=m.joint.beta)
@@ -492,27 +518,37 @@ def test_out_of_range_parameter_at_instantiation(slave_of, psets, field, value):
     errors = [msg for st, msg in s.log if st == 3]
     assert any(f"mode[2].{field} = {value!r}" in msg and expected[0].allowed in msg
                for msg in errors), errors
-    with pytest.raises(Exception):
+    with pytest.raises(Exception) as exc:
         s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)
+    assert getattr(exc.value, "status", None) == s.refused
+    assert any(st == 3 and "fmi2DoStep is not allowed in the state 'error'" in msg
+               for st, msg in s.log)
 
 
 def test_negative_step_refused(slave_of):
+    """A negative step is a call the FMU cannot take: refused, nothing changed (the next step
+    runs)."""
     s = slave_of("tray_nominal")
     s.init()
-    with pytest.raises(Exception):
+    with pytest.raises(Exception) as exc:
         s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=-1e-3)
-    assert any(st == 3 and "step size" in msg for st, msg in s.log)
+    assert getattr(exc.value, "status", None) == s.refused
+    assert any(st == 3 and "step size -0.001" in msg for st, msg in s.log)
+    s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)
 
 
 def test_parameter_set_after_initialization_refused(slave_of):
     """FMI 2.0 sec. 2.2.7: a parameter of variability "fixed" cannot change after
-    initialization; the value is ignored and an error-status message names it."""
+    initialization: fmi2SetReal returns fmi2Error (pythonfmu's binary: fmi2Fatal) with a message
+    naming it, and nothing of the call is set, the input beside it included."""
     s = slave_of("tray_nominal")
     s.init()
-    s.set({"mode[1].joint.chi": -0.2})
-    assert s.fmu.getReal([s.vr["mode[1].joint.chi"]])[0] == -0.45
-    assert any(st == 3 and "mode[1].joint.chi" in msg and "before initialization" in msg
-               for st, msg in s.log)
+    with pytest.raises(Exception) as exc:
+        s.set({"point.shaker.force": 5.0, "mode[1].joint.chi": -0.2})
+    assert getattr(exc.value, "status", None) == s.refused
+    assert s.fmu.getReal([s.vr["mode[1].joint.chi"], s.vr["point.shaker.force"]]) == [-0.45, 0.0]
+    assert any(st == 3 and "mode[1].joint.chi" in msg and "before fmi2ExitInitializationMode"
+               in msg for st, msg in s.log)
 
 
 def test_build_forgets_its_staging_modules(fmus):
@@ -577,7 +613,8 @@ def test_bundle_is_self_contained(fmus):
         core = {n[len(prefix):]: z.read(n).decode() for n in z.namelist()
                 if n.startswith(prefix) and n.endswith(".py")}
         req = z.read("resources/requirements.txt").decode()
-    assert {"__init__.py", "fmu/slave.py", "params/parameter_set.py", "physics/integrate.py",
+    assert {"__init__.py", "fmu/slave.py", "params/parameter_set.py", "params/names.py",
+            "params/rules.py", "physics/integrate.py",
             "fmu/variables.py"} <= set(core)
     # only params, physics, the slave and its table travel (fmu.bundle.BUNDLE)
     assert {n.split("/")[0] for n in core if "/" in n} == {"params", "physics", "fmu"}
@@ -626,27 +663,33 @@ def test_one_get_real_reads_parameters_inputs_and_outputs(slave_of, psets):
 
 
 def test_unknown_value_reference_reported(slave_of):
-    """A value reference that is not in modelDescription.xml: getReal reads NaN, setReal changes
-    nothing, and an error-status message names it and the allowed range; the FMU goes on."""
+    """A value reference that is not in modelDescription.xml: getReal and setReal return
+    fmi2Error (pythonfmu's binary: fmi2Fatal), an error-status message names it and the allowed
+    range, and nothing changes."""
     s = slave_of("tray_nominal")
     s.init()
     n = len(s.md.modelVariables)
     before = s.get()
-    got = s.fmu.getReal([s.vr["mode[1].q"], n + 5])
-    assert got[0] == before[s.outputs.index("mode[1].q")] and math.isnan(got[1])
-    s.fmu.setReal([n + 7], [1.0])
+    with pytest.raises(Exception) as exc:
+        s.fmu.getReal([s.vr["mode[1].q"], n + 5])
+    assert getattr(exc.value, "status", None) == s.refused
+    with pytest.raises(Exception):
+        s.fmu.setReal([s.vr["point.shaker.force"], n + 7], [1.0, 1.0])
     msgs = [msg for st, msg in s.log if st == 3]
     assert any(f"value reference {n + 5} is not a variable" in m and f"0..{n - 1}" in m for m in msgs)
-    assert any(f"value reference {n + 7} is not a variable" in m and "ignored" in m for m in msgs)
+    assert any(f"value reference {n + 7} is not a variable" in m and "nothing was changed" in m
+               for m in msgs)
     assert np.array_equal(s.get(), before)
-    s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)
+    assert s.fmu.getReal([s.vr["point.shaker.force"]]) == [0.0]
 
 
 def test_output_cannot_be_set(slave_of):
     s = slave_of("tray_nominal")
     s.init()
     before = s.get()
-    s.set({"point.tip.x": 3.0})
+    with pytest.raises(Exception) as exc:
+        s.set({"point.tip.x": 3.0})
+    assert getattr(exc.value, "status", None) == s.refused
     assert np.array_equal(s.get(), before)
     assert any(st == 3 and "point.tip.x is an output and cannot be set" in msg for st, msg in s.log)
 
@@ -656,11 +699,13 @@ def test_input_beyond_the_allowed_magnitude_refused(slave_of):
     named by its FMU variable; a valid value afterwards lets the run go on."""
     s = slave_of("tray_nominal")
     s.init()
+    state = s.fmu.getFMUstate()
     s.set({"base.acceleration": 1e15})
     with pytest.raises(Exception) as exc:
         s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)
     assert getattr(exc.value, "status", None) == 2          # fmi2Discard
     assert any(st == 3 and "base.acceleration = 1000000000000000.0" in msg
                and "|value| <= 1e+12" in msg for st, msg in s.log), s.log
+    s.fmu.setFMUstate(state)
     s.set({"base.acceleration": 1.0})
     s.fmu.doStep(currentCommunicationPoint=0.0, communicationStepSize=1e-3)

@@ -177,10 +177,14 @@ def test_both_binaries_give_the_same_numbers(open_slave):
 
 @pytest.mark.parametrize("kind", BINARIES)
 def test_nan_input_refused_with_message(open_slave, kind):
+    """A NaN input: doStep returns fmi2Discard with a message naming it, the state kept; the
+    inputs read back as set (the valid one set after it too); after the FMU state saved before
+    is restored (FMI 2.0 sec. 4.2.4: the way on from "step failed"), valid inputs step."""
     s = open_slave(kind)
     s.init()
     dt = 2e-4
     _drive(s, 0.0, 20, dt, 8)
+    saved = s.fmu.getFMUstate()
     qs = [n for n in s.outputs if n.endswith(".q")]
     before = s.get(qs)
     s.set({"point.shaker.force": math.nan})
@@ -190,7 +194,10 @@ def test_nan_input_refused_with_message(open_slave, kind):
     assert getattr(exc.value, "status", None) == 2          # fmi2Discard
     assert any(st == 3 and "point.shaker.force" in msg and "finite" in msg for st, msg in s.log)
     assert np.array_equal(s.get(qs), before)         # state kept
-    s.set({"point.shaker.force": 1.0})          # a valid value again: steps
+    got = s.fmu.getReal([s.vr["point.shaker.force"], s.vr["base.acceleration"]])
+    assert math.isnan(got[0]) and got[1] == 1.0
+    s.fmu.setFMUstate(saved)
+    s.set({"point.shaker.force": 1.0, "base.acceleration": 1.0})
     s.fmu.doStep(currentCommunicationPoint=20 * dt, communicationStepSize=dt)
     assert s.fmu.getReal([s.vr["point.shaker.force"], s.vr["base.acceleration"]]) == [1.0, 1.0]
 
@@ -265,9 +272,11 @@ def test_mixed_get_real_and_unknown_reference(open_slave, ps, kind):
     alone = np.array([s.get([n])[0] for n in names])
     assert np.array_equal(together, alone) and together[2] == 4.5
     before = s.get()
-    s.fmu.setReal([10 ** 6], [1.0])
+    with pytest.raises(Exception) as exc:
+        s.fmu.setReal([s.vr["point.shaker.force"], 10 ** 6], [1.0, 1.0])
+    assert getattr(exc.value, "status", None) == s.refused
     assert any(st == 3 and "1000000" in msg for st, msg in s.log)
-    assert np.array_equal(s.get(), before)
+    assert np.array_equal(s.get(), before) and s.get(["point.shaker.force"])[0] == 4.5
 
 
 # ------------------------------------------------------------------------------ command line
@@ -297,16 +306,20 @@ def test_cli_build_native(tmp_path, capsys):
 
 @pytest.mark.parametrize("kind", BINARIES)
 def test_rejected_state_keeps_inputs_set_before(open_slave, kind):
-    """fmi2SetFMUstate with a state that is not one of this FMU's: refused with a message; the
+    """A state that is not one of this FMU's: refused with fmi2Error and a message (jointfmu's
+    binary at fmi2DeSerializeFMUstate; pythonfmu's at fmi2SetFMUstate, with fmi2Fatal); the
     inputs set just before stay set (read back, and used by the next step)."""
     s = open_slave(kind)
     s.init()
     _drive(s, 0.0, 5, 2e-4, 7)
     s.set({"point.shaker.force": 3.25})
     a_before = s.get(["point.tip.a"])[0]
-    bad = s.fmu.deSerializeFMUstate(b"not a state")
-    s.fmu.setFMUstate(bad)
-    s.fmu.freeFMUstate(bad)
+    with pytest.raises(Exception) as exc:
+        bad = s.fmu.deSerializeFMUstate(b"not a state")
+        s.fmu.setFMUstate(bad)
+    assert getattr(exc.value, "status", None) == s.refused
+    assert exc.value.function == ("fmi2DeSerializeFMUstate" if kind == "native"
+                                  else "fmi2SetFMUstate")
     assert any(st == 3 and "FMU state rejected" in msg for st, msg in s.log)
     assert s.get(["point.shaker.force", "point.tip.a"]).tolist() == [3.25, a_before]
 

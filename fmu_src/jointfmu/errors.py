@@ -19,6 +19,7 @@ __all__ = [
     "BuildError",
     "OutputPathError",
     "JointFmuWarning",
+    "FmiCallError",
     "did_you_mean",
 ]
 
@@ -108,6 +109,14 @@ class OutputPathError(JointFmuError, OSError):
 class JointFmuWarning(UserWarning):
     """Something the user should know that does not stop the work (an FMU input left at its
     start value because the input file has no column for it, say)."""
+
+
+class FmiCallError(JointFmuError, RuntimeError):
+    """An FMI call the FMU refuses, with the fmi2Error status of the FMI 2.0 standard: a call not
+    allowed in the FMU's state (sec. 4.2.4), an unknown value reference or a variable that cannot
+    be set then, an FMU state that is not one of this FMU's, parameters out of range at
+    fmi2ExitInitializationMode.  Raised by the FMU's slave towards its binary, never to a user:
+    jointfmu's native binary returns fmi2Error, pythonfmu's fmi2Fatal (it has no other way)."""
 
 
 def did_you_mean(key: str, allowed: Iterable[str]) -> str:

@@ -18,9 +18,23 @@ pythonfmu 0.7.0 facts this class is written around (read in its source):
   (``loggingOn`` at fmi2Instantiate, or fmi2SetDebugLogging), whatever their status; with it
   off the host sees only the returned status.
 - pythonfmu cannot return fmi2Error from Python: ``do_step`` -> True/False gives fmi2OK or
-  fmi2Discard, every other method fmi2OK unless it raises (fmi2Fatal).  Out-of-range parameters
-  are therefore reported at exit_initialization_mode by an error-status message, and every
-  later ``do_step`` refuses to run.
+  fmi2Discard, every method fmi2OK unless it raises, and then fmi2Fatal (measured with pythonfmu
+  0.7.0's binary).  Its wrapper then releases one reference each to the instance, its class and
+  its log queue that it never took; a second such call used freed objects (a segfault, measured).
+
+FMI 2.0's rules.  The slave follows the co-simulation state machine (FMI 2.0 standard, sec.
+4.2.4; :data:`ALLOWED_STATES`): a call not allowed in the current state, an unknown value
+reference, a variable that cannot be set in that state, an FMU state that is not one of this
+FMU's and parameters out of range at ``exit_initialization_mode`` are refused: an error-status
+message, nothing changed (the bad parameters leave the FMU in the error state), and
+:class:`~.errors.FmiCallError` raised to the binary.  jointfmu's native binary
+(``native/fmi2_shell.c``, which checks the same state machine itself first) answers it with
+fmi2Error; pythonfmu's binary can only answer fmi2Fatal, the nearest status that still stops the
+host, and :meth:`JointSlave._refuse` gives its wrapper the references it will drop, so that the
+instance stays safe to free.  A step that cannot be taken (a NaN input, numerical trouble) is
+not a refused call: ``do_step`` returns False (fmi2Discard) in both binaries, the state from
+before the step kept, and the FMU is in the state "step failed" (only reading, fmi2Terminate,
+a status query, fmi2SetFMUstate or fmi2Reset may follow).
 """
 from __future__ import annotations
 
@@ -34,18 +48,47 @@ from pythonfmu import Fmi2Slave
 from pythonfmu.enums import Fmi2Causality, Fmi2Initial, Fmi2Status, Fmi2Variability
 from pythonfmu.variables import Real
 
-from ..errors import InputError, JointFmuError
+from ..errors import FmiCallError, InputError, JointFmuError
 from ..physics.integrate import MAX_INPUT
 from ..params import load_parameter_set
 from .variables import variable_table
 
-__all__ = ["JointSlave", "PARAMETER_FILE", "BUILD_INFO_FILE"]
+__all__ = ["JointSlave", "PARAMETER_FILE", "BUILD_INFO_FILE", "FMI_STATES", "ALLOWED_STATES",
+           "INSTANTIATED", "INITIALIZATION_MODE", "STEP_COMPLETE", "STEP_FAILED", "TERMINATED",
+           "ERROR"]
 
 #: Resource file names written by :mod:`.build`.
 PARAMETER_FILE = "parameters.toml"
 BUILD_INFO_FILE = "jointfmu_build.json"
 
 _STATE_MAGIC = "jointfmu-state-1"
+
+# The FMU's states in FMI 2.0's co-simulation state machine (sec. 4.2.4; the native shell,
+# native/fmi2_shell.c, uses the same numbers).  "step failed" follows a doStep that returned
+# fmi2Discard; "error" follows parameters refused at fmi2ExitInitializationMode.
+INSTANTIATED, INITIALIZATION_MODE, STEP_COMPLETE, STEP_FAILED, TERMINATED, ERROR = range(6)
+#: Names of the states, by number.
+FMI_STATES = ("instantiated", "initialization mode", "step complete", "step failed",
+              "terminated", "error")
+_ANY = frozenset(range(6))
+_READABLE = frozenset({INITIALIZATION_MODE, STEP_COMPLETE, STEP_FAILED, TERMINATED, ERROR})
+#: FMI 2.0 sec. 4.2.4: the states each call that reaches the slave is allowed in (the native
+#: shell holds the same table for every FMI call; tests/test_fmu_standard.py compares them).
+ALLOWED_STATES = {
+    "fmi2SetupExperiment": frozenset({INSTANTIATED}),
+    "fmi2EnterInitializationMode": frozenset({INSTANTIATED}),
+    "fmi2ExitInitializationMode": frozenset({INITIALIZATION_MODE}),
+    "fmi2DoStep": frozenset({STEP_COMPLETE}),
+    "fmi2Terminate": frozenset({STEP_COMPLETE, STEP_FAILED}),
+    "fmi2GetReal": _READABLE,
+    "fmi2SetReal": frozenset({INSTANTIATED, INITIALIZATION_MODE, STEP_COMPLETE}),
+    "fmi2GetFMUstate": _ANY,
+    "fmi2SetFMUstate": _ANY,
+}
+
+#: (instance, class, log queue) of every call refused under pythonfmu's binary, kept for the
+#: life of the process: see JointSlave._refuse.
+_REFUSED: list = []
 
 #: Input kinds of the variable table -> the simulator's names for them (ModalSimulator.input_index).
 _INPUT_NAMES = {"modal_force": "modal_forces", "point_force": "point_forces",
@@ -61,6 +104,9 @@ class JointSlave(Fmi2Slave):
         As pythonfmu passes them: ``instance_name``, ``resources`` (the FMU's resources folder,
         holding :data:`PARAMETER_FILE`), ``visible``, ``logger``.
     """
+
+    #: The exception of a refused call (the native shell answers it with fmi2Error).
+    CALL_ERROR = FmiCallError
 
     def __init__(self, **kwargs):
         super().__init__(**kwargs)
@@ -82,6 +128,9 @@ class JointSlave(Fmi2Slave):
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
         self._initialized = False
+        self._fmi_state = INSTANTIATED
+        self._native = False         # set by jointfmu's native shell right after instantiation
+        self._describing = False     # see to_xml
         for vr, var in enumerate(self._table):
             self.register_variable(self._real(vr, var), nested=False)
             if self.vars[vr].value_reference != vr:  # build time: pythonfmu numbering changed
@@ -89,13 +138,55 @@ class JointSlave(Fmi2Slave):
 
     # ----------------------------------------------------------------------------- variables
     def _real(self, vr: int, var) -> Real:
-        # the per-variable getter and setter go through the same fast paths as the host's calls
+        # the per-variable getter and setter go through the same paths as the host's calls
         initial = Fmi2Initial[var.initial] if var.initial else None
         return Real(var.name, start=var.start, causality=Fmi2Causality[var.causality],
                     variability=Fmi2Variability[var.variability], initial=initial,
                     description=var.description,
                     getter=lambda vr=vr: self.get_real([vr])[0],
                     setter=lambda value, vr=vr: self.set_real([vr], [value]))
+
+    def to_xml(self, model_options=None):
+        """pythonfmu's builder: the model description; it reads the start values with get_real
+        in the state "instantiated", where an FMI host may not (FMI 2.0 sec. 4.2.4)."""
+        self._describing = True
+        try:
+            return super().to_xml(model_options if model_options is not None else {})
+        finally:
+            self._describing = False
+
+    # ----------------------------------------------------------------------- FMI's rules
+    def _refuse(self, message: str, state: int | None = None):
+        """Refuse the current FMI call: an error-status message, optionally a new FMI state
+        (the error state), and :class:`FmiCallError` to the binary (fmi2Error; pythonfmu's
+        binary: fmi2Fatal).  The caller has changed nothing else."""
+        if state is not None:
+            self._fmi_state = state
+        self.log(message, Fmi2Status.error)
+        if not self._native:
+            # pythonfmu 0.7.0's wrapper answers the exception with fmi2Fatal and drops one
+            # reference each to this instance, its class and its log queue that it never took
+            # (PySlaveInstance::handle_py_exception -> cleanPyObject); keep one of each alive for
+            # it, or the next call or fmi2FreeInstance works on freed objects.
+            _REFUSED.append((self, type(self), self.log_queue))
+        raise FmiCallError(message)
+
+    def _check_call(self, fmi_call: str) -> None:
+        """Refuse ``fmi_call`` unless FMI 2.0's state machine allows it in the current state."""
+        allowed = ALLOWED_STATES[fmi_call]
+        if self._fmi_state not in allowed:
+            names = ", ".join(repr(FMI_STATES[k]) for k in sorted(allowed))
+            self._refuse(f"{fmi_call} is not allowed in the state {FMI_STATES[self._fmi_state]!r} "
+                         f"(FMI 2.0 sec. 4.2.4: allowed in {names}); nothing was changed")
+
+    def _check_references(self, vrs, fmi_call: str) -> None:
+        """Refuse a call naming a value reference this FMU does not have."""
+        n = len(self._table)
+        bad = [vr for vr in vrs if not (type(vr) is int and 0 <= vr < n)]
+        if bad:
+            self._refuse(f"{fmi_call}: value reference {bad[0]!r} is not a variable of this FMU: "
+                         f"allowed are 0..{n - 1}, as in modelDescription.xml; nothing was "
+                         "changed")
 
     def get_real(self, vrs):
         """Values of the variables ``vrs`` (fmi2GetReal); pythonfmu's C wrapper calls this once
@@ -104,9 +195,11 @@ class JointSlave(Fmi2Slave):
         Outputs are read from the simulator's output buffer, current with the state and the
         inputs (outputs with direct feedthrough, accelerations and the base force, see inputs
         set since the last step; an input refused at doStep leaves them at the last valid
-        inputs).  An unknown value reference is reported and reads NaN: nothing here raises
-        into the C wrapper.
+        inputs).  Refused (:meth:`_refuse`) in a state where fmi2GetReal is not allowed (before
+        fmi2EnterInitializationMode) and for an unknown value reference.
         """
+        if self._fmi_state not in _READABLE and not self._describing:
+            self._check_call("fmi2GetReal")
         try:
             if self._pending:
                 self._push_inputs_if_valid()
@@ -116,7 +209,9 @@ class JointSlave(Fmi2Slave):
             values = self._values
             return [outs[p] if p >= 0 else values[~p] for p in plan]
         except Exception:
-            return [self._get_one(vr) for vr in vrs]
+            pass
+        self._check_references(vrs, "fmi2GetReal")
+        return [self._get_one(vr) for vr in vrs]
 
     def _read_plan(self, vrs: tuple) -> list:
         """Where get_real finds each of ``vrs``: p >= 0 at position p of the output buffer,
@@ -137,11 +232,9 @@ class JointSlave(Fmi2Slave):
         except JointFmuError:
             pass    # refused, and reported, at doStep
 
-    def _get_one(self, vr) -> float:
-        """One value on the slow path: before a simulator exists (outputs read 0), an unknown
-        value reference (reported, NaN), or an output that cannot be evaluated (NaN)."""
-        if not self._known(vr, "read as NaN"):
-            return math.nan
+    def _get_one(self, vr: int) -> float:
+        """One value on the slow path: before a simulator exists (outputs read 0), or an output
+        that cannot be evaluated (NaN)."""
         if not self._table[vr].is_output:
             return self._values[vr]
         if self._sim is None:
@@ -152,36 +245,34 @@ class JointSlave(Fmi2Slave):
         except Exception:       # never raise into the C wrapper
             return math.nan
 
-    def _known(self, vr, consequence: str) -> bool:
-        """True for a value reference of this FMU; otherwise an error-status message."""
-        if isinstance(vr, int) and 0 <= vr < len(self._table):
-            return True
-        self.log(f"value reference {vr!r} is not a variable of this FMU ({consequence}): allowed "
-                 f"are 0..{len(self._table) - 1}, as in modelDescription.xml", Fmi2Status.error)
-        return False
-
     def set_real(self, vrs, values) -> None:
         """Set the variables ``vrs`` (fmi2SetReal).  A valid input goes to the simulator at once;
         one set before the simulator exists, or refused by it, waits for the next doStep (which
-        reports a refused one, names it, and does not step) or output read.  Parameters only
-        before initialization ends; outputs and unknown value references are refused with an
-        error-status message."""
+        reports a refused one, names it, and does not step) or output read.  Refused as a whole,
+        nothing set (:meth:`_refuse`): a state where fmi2SetReal is not allowed, an unknown value
+        reference, an output, a parameter after fmi2ExitInitializationMode (variability "fixed",
+        FMI 2.0 sec. 2.2.7 and the table of sec. 4.2.4)."""
         stored, pending, sim = self._values, self._pending, self._sim
-        if sim is None or pending:
-            # handed over together at the next doStep or read
-            inputs = self._input_vrs
-            for vr, value in zip(vrs, values):
-                if vr in inputs:
-                    stored[vr] = value
-                    pending.add(vr)
-                else:
-                    self._set_value(vr, value)
-            return
+        if (pending or sim is None or self._fmi_state != STEP_COMPLETE
+                or not self._input_vrs.issuperset(vrs)):
+            self._check_set(vrs)
+            if sim is None or pending:
+                # handed over together at the next doStep or read
+                inputs = self._input_vrs
+                for vr, value in zip(vrs, values):
+                    if vr in inputs:
+                        stored[vr] = value
+                        pending.add(vr)
+                    else:
+                        stored[vr] = float(value)       # a parameter
+                        self._settings_changed = True
+                return
         in_pos = self._in_pos
         for vr, value in zip(vrs, values):
             p = in_pos.get(vr)
-            if p is None:
-                self._set_value(vr, value)
+            if p is None:                 # a parameter (checked above: before initialization ends)
+                stored[vr] = float(value)
+                self._settings_changed = True
                 continue
             stored[vr] = value
             try:
@@ -189,35 +280,64 @@ class JointSlave(Fmi2Slave):
             except JointFmuError:
                 pending.add(vr)     # refused, naming its FMU variable, at the next doStep
 
-    def _set_value(self, vr, value) -> None:
-        if not self._known(vr, f"value {value!r} ignored"):
-            return
-        var = self._table[vr]
-        if var.is_output:
-            self.log(f"{var.name} is an output and cannot be set (value {value!r} ignored)",
-                     Fmi2Status.error)
-            return
-        if self._initialized:
-            self.log(f"parameter {var.name} can only be set before initialization ends "
-                     f"(value {value!r} ignored); instantiate anew or reset to change it",
-                     Fmi2Status.error)
-            return
-        self._values[vr] = float(value)     # a parameter (set_real itself takes the inputs)
-        self._settings_changed = True
+    def _check_set(self, vrs) -> None:
+        """Refuse an fmi2SetReal that is not allowed as a whole (nothing is set then)."""
+        if self._fmi_state not in ALLOWED_STATES["fmi2SetReal"]:
+            self._check_call("fmi2SetReal")
+        self._check_references(vrs, "fmi2SetReal")
+        for vr in vrs:
+            var = self._table[vr]
+            if var.is_output:
+                self._refuse(f"fmi2SetReal: {var.name} is an output and cannot be set "
+                             "(FMI 2.0 sec. 4.2.4); nothing was changed")
+            if not var.is_input and self._fmi_state not in (INSTANTIATED, INITIALIZATION_MODE):
+                self._refuse(f"fmi2SetReal: parameter {var.name} has variability \"fixed\" and "
+                             "can only be set before fmi2ExitInitializationMode (FMI 2.0 sec. "
+                             "2.2.7); nothing was changed: instantiate anew or reset to change it")
 
     # ------------------------------------------------------------------------- life cycle
-    def exit_initialization_mode(self):
+    def setup_experiment(self, start_time: float, stop_time=None, tolerance=None) -> None:
+        """fmi2SetupExperiment: allowed once instantiated (the times are the host's business:
+        the FMU has no clock of its own, each doStep says where it starts)."""
+        self._check_call("fmi2SetupExperiment")
+
+    def enter_initialization_mode(self) -> None:
+        self._check_call("fmi2EnterInitializationMode")
+        self._fmi_state = INITIALIZATION_MODE
+
+    def exit_initialization_mode(self) -> None:
+        """fmi2ExitInitializationMode: the simulator is made from the parameter values set.
+        Values out of range are refused here, with the messages of ``jointfmu check``, and leave
+        the FMU in the error state (FMI 2.0 sec. 2.1.3: only fmi2Reset, fmi2FreeInstance,
+        fmi2SetFMUstate and reading may follow)."""
+        self._check_call("fmi2ExitInitializationMode")
         self._initialized = True
-        self._ensure_simulator()
+        if not self._ensure_simulator():
+            self._refuse(f"fmi2ExitInitializationMode: {self._init_error}", state=ERROR)
+        self._fmi_state = STEP_COMPLETE
+
+    def terminate(self) -> None:
+        self._check_call("fmi2Terminate")
+        self._fmi_state = TERMINATED
 
     def do_step(self, current_time: float, step_size: float) -> bool:
+        """fmi2DoStep: True (fmi2OK) when the step was taken, False (fmi2Discard) when it could
+        not be, the state from before it kept and a message logged; refused (:meth:`_refuse`)
+        outside the state "step complete"."""
+        if self._fmi_state != STEP_COMPLETE:
+            self._check_call("fmi2DoStep")
+        if not 0.0 <= step_size < math.inf:
+            self._refuse(f"fmi2DoStep: communication step size {step_size!r} at t = "
+                         f"{current_time!r} s is invalid: allowed is a finite step >= 0 s; "
+                         "nothing was changed")
+        ok = self._step(current_time, step_size)
+        self._fmi_state = STEP_COMPLETE if ok else STEP_FAILED
+        return ok
+
+    def _step(self, current_time: float, step_size: float) -> bool:
         try:
             if (self._sim is None or self._settings_changed) and not self._ensure_simulator():
                 self.log(f"cannot step: {self._init_error}", Fmi2Status.error)
-                return False
-            if not 0.0 <= step_size < math.inf:
-                self.log(f"communication step size {step_size!r} at t = {current_time!r} s is "
-                         "invalid: allowed is a finite step >= 0 s", Fmi2Status.error)
                 return False
             if self._pending:
                 try:
@@ -259,8 +379,8 @@ class JointSlave(Fmi2Slave):
         return (tuple(self._values[k] for k in self._param_vrs), self._values[self._steps_vr])
 
     def _ensure_simulator(self) -> bool:
-        """Build the simulator for the current parameter values; False (and a logged error) if
-        they are out of range."""
+        """Build the simulator for the current parameter values; False if they are out of
+        range (why in ``_init_error``, the callers say it)."""
         if self._sim is not None and not self._settings_changed:
             return True
         self._settings_changed = False
@@ -273,32 +393,40 @@ class JointSlave(Fmi2Slave):
         self._sim = None
         self._pending = set(self._input_vrs)   # a new simulator starts from zero inputs
         try:
-            params = self._effective_params()
-            from ..physics.integrate import ModalSimulator  # its range check names steps_per_period
-            sim = ModalSimulator(params, steps_per_period=self._values[self._steps_vr])
-            self._in_pos = {vr: sim.input_index(_INPUT_NAMES[v.kind], v.index)
-                            for vr, v in enumerate(self._table) if v.is_input}
-            self._out_pos = {vr: sim.output_index(v.kind, v.index)
-                             for vr, v in enumerate(self._table) if v.is_output}
-            self._read_plans = {}
-            self._sim = sim
+            self._install(self._build(self._values))
         except JointFmuError as exc:
-            self._init_error = str(exc)
-            self.log(f"parameters out of range at initialization: {exc}", Fmi2Status.error)
+            self._init_error = f"parameters out of range at initialization: {exc}"
             return False
         except Exception as exc:
-            self._init_error = f"{type(exc).__name__}: {exc}"
-            self.log(f"could not set up the simulation: {self._init_error}", Fmi2Status.error)
+            self._init_error = f"could not set up the simulation: {type(exc).__name__}: {exc}"
             return False
         self._init_error = None
         return True
 
-    def _effective_params(self):
+    def _build(self, values):
+        """A simulator for the variable values ``values`` (nothing of the slave changed):
+        ``(simulator, input position per value reference, output position per value
+        reference)``.  Raises ParameterError (the messages of ``jointfmu check``) for values out
+        of range."""
+        from ..physics.integrate import ModalSimulator  # its range check names steps_per_period
+        sim = ModalSimulator(self._effective_params(values),
+                             steps_per_period=values[self._steps_vr])
+        in_pos = {vr: sim.input_index(_INPUT_NAMES[v.kind], v.index)
+                  for vr, v in enumerate(self._table) if v.is_input}
+        out_pos = {vr: sim.output_index(v.kind, v.index)
+                   for vr, v in enumerate(self._table) if v.is_output}
+        return sim, in_pos, out_pos
+
+    def _install(self, built) -> None:
+        self._sim, self._in_pos, self._out_pos = built
+        self._read_plans = {}
+
+    def _effective_params(self, values):
         changes = {}
         for k in self._param_vrs:
             var = self._table[k]
-            if self._values[k] != var.start or not math.isfinite(self._values[k]):
-                changes[(var.index + 1, var.field)] = self._values[k]  # 1-based in params
+            if values[k] != var.start or not math.isfinite(values[k]):
+                changes[(var.index + 1, var.field)] = values[k]  # 1-based in params
         if not changes:
             return self._params0
         return self._params0.with_mode_values(changes)
@@ -369,11 +497,14 @@ class JointSlave(Fmi2Slave):
 
     # ----------------------------------------------------------------------------- states
     def _get_fmu_state(self) -> bytes:
+        """fmi2GetFMUstate (allowed in every state): the variable values, the FMI state and the
+        simulator's state, as bytes."""
         header = {
             "magic": _STATE_MAGIC,
             "parameter_set": self._identity(),
             "values": self._values,
             "initialized": self._initialized,
+            "fmi_state": self._fmi_state,
             "core": None,
         }
         if self._sim is not None:
@@ -382,33 +513,79 @@ class JointSlave(Fmi2Slave):
         return json.dumps(header).encode("utf-8")
 
     def _set_fmu_state(self, state) -> None:
+        """fmi2SetFMUstate (allowed in every state): the state saved by :meth:`_get_fmu_state`,
+        the FMI state included.  A state that is not one of this FMU's (corrupt, truncated,
+        another build's or structure's) is refused and the current state kept, inputs set
+        before the call included: everything is checked before anything changes."""
+        try:
+            data = self._read_state(state)
+            values, core = data["values"], data["core"]
+            settings = (tuple(values[k] for k in self._param_vrs), values[self._steps_vr])
+            built = None
+            if core is not None:
+                if self._sim is not None and settings == self._active:
+                    self._sim.check_state(core)
+                else:
+                    built = self._build(values)
+                    built[0].set_state(core)
+        except Exception as exc:
+            self._refuse(f"FMU state rejected, current state kept: {exc}")
+        # from here on nothing fails
+        self._values = values
+        self._initialized = data["initialized"]
+        self._fmi_state = data["fmi_state"]
+        if core is None:                    # saved before the simulator existed
+            self._sim, self._active, self._init_error = None, None, None
+            self._settings_changed = True
+            self._pending = set(self._input_vrs)
+            return
+        if built is not None:
+            self._install(built)
+            self._active, self._init_error = settings, None
+        else:
+            self._sim.set_state(core)
+        self._settings_changed = False
+        self._pending = set()   # the state holds its inputs
+
+    def _read_state(self, state) -> dict:
+        """A saved state's contents, checked to be one of this FMU's (no simulator involved);
+        ValueError saying what is wrong otherwise."""
         try:
             data = json.loads(bytes(state).decode("utf-8"))
-            if not isinstance(data, dict) or data.get("magic") != _STATE_MAGIC:
-                raise ValueError("not a jointfmu FMU state")
-            if data["parameter_set"] != self._identity():
-                raise ValueError(f"state of parameter set {data['parameter_set']}, this FMU "
-                                 f"is {self._identity()}")
-            values = data["values"]
-            if len(values) != len(self._values):
-                raise ValueError("state has a different number of variables")
-        except Exception as exc:
-            self.log(f"FMU state rejected, current state kept: {exc}", Fmi2Status.error)
-            return
-        self._values = [None if v is None else float(v) for v in values]
-        self._settings_changed = True
-        self._initialized = bool(data["initialized"])
-        if data["core"] is None:            # saved before the simulator existed
-            self._sim, self._active, self._init_error = None, None, None
-            return
-        # _ensure_simulator keeps the simulator when the parameter values are unchanged
-        if self._ensure_simulator():
+        except (UnicodeDecodeError, ValueError, TypeError) as exc:
+            raise ValueError(f"not a jointfmu FMU state (corrupt or truncated: {exc})") from None
+        if not isinstance(data, dict) or data.get("magic") != _STATE_MAGIC:
+            raise ValueError("not a jointfmu FMU state")
+        if data.get("parameter_set") != self._identity():
+            raise ValueError(f"state of parameter set {data.get('parameter_set')}, this FMU "
+                             f"is {self._identity()}")
+        values = data.get("values")
+        if not isinstance(values, list) or len(values) != len(self._values):
+            raise ValueError("state has a different number of variables")
+        for var, x in zip(self._table, values):
+            if (x is None) != var.is_output or not (x is None or type(x) in (int, float)):
+                raise ValueError(f"state holds {x!r} for {var.name}")
+        fmi_state = data.get("fmi_state", STEP_COMPLETE if data.get("initialized") else INSTANTIATED)
+        if type(fmi_state) is not int or fmi_state not in _ANY:
+            raise ValueError(f"state has no FMI state ({fmi_state!r})")
+        core = data.get("core")
+        if core is not None:
             try:
-                self._sim.set_state(base64.b64decode(data["core"]))
-                self._pending = set()   # the state holds its inputs
-            except Exception as exc:
-                self._sim, self._active = None, None
-                self.log(f"FMU state could not be restored: {exc}", Fmi2Status.error)
+                core = base64.b64decode(core, validate=True)
+            except (TypeError, ValueError) as exc:
+                raise ValueError(f"corrupt simulator state ({exc})") from None
+        return {"values": [None if x is None else float(x) for x in values],
+                "initialized": bool(data.get("initialized")), "fmi_state": fmi_state,
+                "core": core}
+
+    def _state_problem(self, data) -> str | None:
+        """What is wrong with serialized state bytes (None: nothing found before restoring);
+        jointfmu's native shell asks at fmi2DeSerializeFMUstate."""
+        try:
+            self._read_state(data)
+        except ValueError as exc:
+            return str(exc)
+        return None
 
     @staticmethod
     def _fmu_state_to_bytes(state) -> bytes:
@@ -416,6 +593,8 @@ class JointSlave(Fmi2Slave):
 
     @staticmethod
     def _fmu_state_from_bytes(data) -> bytes:
+        # checked at fmi2SetFMUstate (pythonfmu calls this on the class, where a refusal could
+        # not keep its instance safe: see _refuse); the native shell checks here already
         return bytes(data)
 
     def _identity(self) -> str:

@@ -643,19 +643,32 @@ class ModalSimulator:
         )
         return buf.getvalue()
 
-    def set_state(self, data: bytes) -> None:
-        """Restore a state from :meth:`get_state` of a simulator of the same structure."""
+    def check_state(self, data: bytes) -> dict:
+        """The parts of a state from :meth:`get_state`, checked to fit this simulator; nothing is
+        changed.  Raises InputError saying why a state does not fit."""
         try:
             with np.load(io.BytesIO(bytes(data)), allow_pickle=False) as z:
                 parts = {k: z[k] for k in z.files}
         except Exception as exc:  # noqa: BLE001
             raise InputError(f"FMU state: not a jointfmu state ({exc})") from exc
-        if (int(parts.get("version", -1)) != _STATE_VERSION or parts["st"].shape != self._st.shape
+        missing = {"version", "st", "js", "stk", "u", "e0", "time"} - set(parts)
+        if missing:
+            raise InputError(f"FMU state: not a jointfmu state (no {', '.join(sorted(missing))})")
+        if (int(parts["version"]) != _STATE_VERSION or parts["st"].shape != self._st.shape
                 or parts["js"].shape != self._js.shape or parts["u"].shape != self._u.shape):
             raise InputError("FMU state: made by another structure or version of jointfmu")
-        depth = parts["stk"].shape[1]
-        if depth > self._cap:
+        if parts["stk"].ndim != self._stk.ndim or parts["stk"].shape[0] != self._stk.shape[0] \
+                or parts["stk"].shape[2:] != self._stk.shape[2:]:
+            raise InputError("FMU state: made by another structure or version of jointfmu")
+        if parts["stk"].shape[1] > self._cap:
             raise InputError("FMU state: reversal stack larger than this simulator's capacity")
+        return parts
+
+    def set_state(self, data: bytes) -> None:
+        """Restore a state from :meth:`get_state` of a simulator of the same structure
+        (checked first with :meth:`check_state`: a state that does not fit changes nothing)."""
+        parts = self.check_state(data)
+        depth = parts["stk"].shape[1]
         self._st[:] = parts["st"]
         self._js[:] = parts["js"]
         self._stk[:, :depth] = parts["stk"]

@@ -19,6 +19,16 @@
  *
  * Types, function names and calling rules: FMI 2.0.x standard, sec. 2.1 (common API) and
  * sec. 4.2 (co-simulation API).  The few types needed are declared here.
+ *
+ * FMI's rules.  The shell keeps the instance's place in the co-simulation state machine (FMI
+ * 2.0 sec. 4.2.4; see "The state machine" below) and answers a call that is not allowed there
+ * with fmi2Error and a message, changing nothing, before any Python runs.  The slave checks the
+ * same table again (jointfmu.fmu.slave.ALLOWED_STATES, for pythonfmu's binary, which has no
+ * state machine of its own) and refuses what only it can judge (an unknown value reference, a
+ * parameter set after initialization, an FMU state of another build, parameters out of range)
+ * by raising its CALL_ERROR: the shell answers that with fmi2Error as well.  Any other Python
+ * exception is a bug: it is printed, logged, answered with fmi2Error and leaves the instance
+ * in the error state.
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
@@ -80,6 +90,85 @@ typedef struct {
     PyObject *obj; /* what the slave's _get_fmu_state returned (a new reference) */
 } ShellState;
 
+/* ------------------------------------------------------------------------- the state machine
+ * FMI 2.0 sec. 4.2.4 ("State Machine of Calling Sequence from Master to Slave"), with sec. 2.1.3
+ * for the error state.  The numbers are those of jointfmu.fmu.slave (INSTANTIATED ... ERROR).
+ *
+ *   instantiated --fmi2EnterInitializationMode--> initialization mode
+ *   initialization mode --fmi2ExitInitializationMode--> step complete   (fmi2Error: error)
+ *   step complete --fmi2DoStep--> step complete (fmi2OK) | step failed (fmi2Discard)
+ *   step complete, step failed --fmi2Terminate--> terminated
+ *   any state --fmi2Reset--> instantiated;  any --fmi2SetFMUstate--> the state saved with it
+ *
+ * "step failed": a doStep could not be taken (the state from before it kept); the host may
+ * read, ask the status, restore an FMU state, terminate or reset.  doStep never runs
+ * asynchronously, so the states "step in progress" and "step canceled" do not occur. */
+enum { ST_INSTANTIATED, ST_INITIALIZATION, ST_STEP_COMPLETE, ST_STEP_FAILED, ST_TERMINATED,
+       ST_ERROR, N_STATES };
+#define IN(st) (1u << (st))
+#define ANY_STATE (IN(N_STATES) - 1u)
+#define READABLE (IN(ST_INITIALIZATION) | IN(ST_STEP_COMPLETE) | IN(ST_STEP_FAILED) | \
+                  IN(ST_TERMINATED) | IN(ST_ERROR))
+#define SETTABLE (IN(ST_INSTANTIATED) | IN(ST_INITIALIZATION) | IN(ST_STEP_COMPLETE))
+#define STATUS_QUERY (IN(ST_STEP_COMPLETE) | IN(ST_STEP_FAILED) | IN(ST_TERMINATED))
+
+static const char *const STATE_NAMES[N_STATES] = {
+    "instantiated", "initialization mode", "step complete", "step failed", "terminated", "error"};
+
+/* The states each call is allowed in: the table of sec. 4.2.4 for co-simulation.  One row per
+ * call; it defines MASK_<call> for the checks and the table jointfmu_allowed_states reads. */
+#define ALLOWED_STATES(X)                                                                    \
+    X(fmi2SetDebugLogging, ANY_STATE)                                                        \
+    X(fmi2SetupExperiment, IN(ST_INSTANTIATED))                                              \
+    X(fmi2EnterInitializationMode, IN(ST_INSTANTIATED))                                      \
+    X(fmi2ExitInitializationMode, IN(ST_INITIALIZATION))                                     \
+    X(fmi2Terminate, IN(ST_STEP_COMPLETE) | IN(ST_STEP_FAILED))                              \
+    X(fmi2Reset, ANY_STATE)                                                                  \
+    X(fmi2GetReal, READABLE)                                                                 \
+    X(fmi2GetInteger, READABLE)                                                              \
+    X(fmi2GetBoolean, READABLE)                                                              \
+    X(fmi2GetString, READABLE)                                                               \
+    X(fmi2SetReal, SETTABLE)                                                                 \
+    X(fmi2SetInteger, SETTABLE)                                                              \
+    X(fmi2SetBoolean, SETTABLE)                                                              \
+    X(fmi2SetString, SETTABLE)                                                               \
+    X(fmi2GetFMUstate, ANY_STATE)                                                            \
+    X(fmi2SetFMUstate, ANY_STATE)                                                            \
+    X(fmi2FreeFMUstate, ANY_STATE)                                                           \
+    X(fmi2SerializedFMUstateSize, ANY_STATE)                                                 \
+    X(fmi2SerializeFMUstate, ANY_STATE)                                                      \
+    X(fmi2DeSerializeFMUstate, ANY_STATE)                                                    \
+    X(fmi2GetDirectionalDerivative, READABLE)                                                \
+    X(fmi2SetRealInputDerivatives, SETTABLE)                                                 \
+    X(fmi2GetRealOutputDerivatives, READABLE & ~IN(ST_INITIALIZATION))                       \
+    X(fmi2DoStep, IN(ST_STEP_COMPLETE))                                                      \
+    X(fmi2CancelStep, 0u) /* only while a step is in progress: never here */                 \
+    X(fmi2GetStatus, STATUS_QUERY)                                                           \
+    X(fmi2GetRealStatus, STATUS_QUERY)                                                       \
+    X(fmi2GetIntegerStatus, STATUS_QUERY)                                                    \
+    X(fmi2GetBooleanStatus, STATUS_QUERY)                                                    \
+    X(fmi2GetStringStatus, STATUS_QUERY)
+
+#define DEFINE_MASK(call, states) enum { MASK_##call = (int)(states) };
+ALLOWED_STATES(DEFINE_MASK)
+
+static const struct {
+    const char *call;
+    unsigned states;
+} ALLOWED[] = {
+#define TABLE_ROW(call, states) {#call, (unsigned)(states)},
+    ALLOWED_STATES(TABLE_ROW)
+};
+
+/* The table, for tests (not an FMI function): the states a call is allowed in as bits
+ * 1 << state, or -1 for a call it does not hold. */
+FMI2_EXPORT int jointfmu_allowed_states(const char *call)
+{
+    for (size_t k = 0; k < sizeof ALLOWED / sizeof ALLOWED[0]; k++)
+        if (call && strcmp(ALLOWED[k].call, call) == 0) return (int)ALLOWED[k].states;
+    return -1;
+}
+
 typedef struct {
     uint32_t magic;
     char *instance_name;
@@ -90,8 +179,12 @@ typedef struct {
     size_t n_categories;
     int visible;
     int broken;           /* fmi2Fatal was returned: only fmi2FreeInstance is allowed */
+    int state;            /* ST_INSTANTIATED ... ST_ERROR (the state machine above) */
+    double last_time;     /* fmi2LastSuccessfulTime: end of the last step taken, NaN before */
+    int step_refused;     /* the last doStep returned fmi2Discard (fmi2Terminated) */
 
     PyObject *cls;        /* the slave class */
+    PyObject *call_error; /* cls.CALL_ERROR: the exception of a call the slave refuses */
     PyObject *slave;      /* the slave instance */
     PyObject *log_queue;  /* slave._get_log_queue(): a list of LogMsg */
 
@@ -214,9 +307,18 @@ static void drain_log(Shell *s)
     PyErr_Clear();
 }
 
-/* A Python exception is pending (GIL held): print it, log it, clear it. */
-static void report_exception(Shell *s, const char *where)
+static void set_slave_state(Shell *s, int state);
+
+/* A Python exception is pending (GIL held).  The slave's CALL_ERROR is a refused call: its
+ * message is in the log queue (forwarded now), nothing was changed, returns 1.  Anything else is
+ * a bug: printed, logged, cleared, the instance put in the error state, returns 0. */
+static int report_exception(Shell *s, const char *where)
 {
+    if (s && s->call_error && PyErr_ExceptionMatches(s->call_error)) {
+        PyErr_Clear();
+        drain_log(s);
+        return 1;
+    }
     PyObject *type, *value, *tb;
     PyErr_Fetch(&type, &value, &tb);
     PyErr_NormalizeException(&type, &value, &tb);
@@ -237,7 +339,9 @@ static void report_exception(Shell *s, const char *where)
     if (s) {
         drain_log(s);
         send_log(s, fmi2Error, "logStatusError", buf);
+        set_slave_state(s, ST_ERROR);
     }
+    return 0;
 }
 
 /* ------------------------------------------------------------------------------ fast layout */
@@ -474,9 +578,15 @@ static int new_slave(Shell *s)
     Py_DECREF(args);
     Py_DECREF(kwargs);
     if (!s->slave) return -1;
+    /* the slave answers a refused call with CALL_ERROR only (no references to keep for
+     * pythonfmu's wrapper, see JointSlave._refuse) */
+    if (PyObject_SetAttrString(s->slave, "_native", Py_True) != 0) return -1;
     s->log_queue = PyObject_CallMethod(s->slave, "_get_log_queue", NULL);
     if (!s->log_queue) return -1;
     drain_log(s);
+    s->state = ST_INSTANTIATED;
+    s->last_time = NAN;
+    s->step_refused = 0;
     return 0;
 }
 
@@ -526,6 +636,12 @@ static int load_class(Shell *s, char *err, size_t nerr)
         snprintf(err, nerr, "module %s has no slave class %s", module, module);
         return -1;
     }
+    s->call_error = PyObject_GetAttrString(s->cls, "CALL_ERROR");
+    if (!s->call_error) {
+        snprintf(err, nerr, "slave class %s has no CALL_ERROR (built by another jointfmu?)",
+                 module);
+        return -1;
+    }
     return 0;
 }
 
@@ -556,7 +672,52 @@ static Shell *as_shell(fmi2Component c)
         return fmi2Error;                                             \
     }
 
-/* Call a slave method without arguments; fmi2OK, or fmi2Error after an exception. */
+/* A call not allowed in the current state (sec. 4.2.4): fmi2Error, a message, nothing changed. */
+static fmi2Status refuse_in_state(Shell *s, const char *call, unsigned allowed)
+{
+    char names[256] = "";
+    size_t used = 0;
+    for (int k = 0; k < N_STATES; k++) {
+        if (!(allowed & IN(k))) continue;
+        int n = snprintf(names + used, sizeof names - used, "%s'%s'", used ? ", " : "",
+                         STATE_NAMES[k]);
+        if (n < 0 || (size_t)n >= sizeof names - used) break;
+        used += (size_t)n;
+    }
+    shell_log(s, fmi2Error, "%s is not allowed in the state '%s' (FMI 2.0 sec. 4.2.4: allowed in "
+              "%s); nothing was changed", call, STATE_NAMES[s->state],
+              used ? names : "no state of this FMU");
+    return fmi2Error;
+}
+
+#define CHECK_STATE(call)                                                                    \
+    if (!(IN(s->state) & (unsigned)MASK_##call)) return refuse_in_state(s, #call, MASK_##call)
+
+/* The slave's FMI state (GIL held): set it to the shell's after the shell decided it. */
+static void set_slave_state(Shell *s, int state)
+{
+    s->state = state;
+    if (!s->slave) return;
+    PyObject *v = PyLong_FromLong(state);
+    if (!v || PyObject_SetAttrString(s->slave, "_fmi_state", v) != 0) PyErr_Clear();
+    Py_XDECREF(v);
+}
+
+/* Take the slave's FMI state (GIL held), after a call in which it decided it. */
+static void sync_state(Shell *s)
+{
+    PyObject *v = PyObject_GetAttrString(s->slave, "_fmi_state");
+    long state = v ? PyLong_AsLong(v) : -1;
+    Py_XDECREF(v);
+    if (state < 0 || state >= N_STATES) {
+        PyErr_Clear();
+        state = ST_ERROR;
+    }
+    s->state = (int)state;
+}
+
+/* Call a slave method without arguments (the slave moves its FMI state, the shell takes it);
+ * fmi2OK, or fmi2Error when the slave refused or raised. */
 static fmi2Status call_plain(Shell *s, const char *method, const char *fmi_name)
 {
     PyGILState_STATE g = PyGILState_Ensure();
@@ -570,6 +731,7 @@ static fmi2Status call_plain(Shell *s, const char *method, const char *fmi_name)
         report_exception(s, fmi_name);
         status = fmi2Error;
     }
+    sync_state(s);
     s->out_fresh = 0;
     PyGILState_Release(g);
     return status;
@@ -661,6 +823,7 @@ FMI2_EXPORT fmi2Component fmi2Instantiate(fmi2String instanceName, fmi2Type fmuT
         else send_log(s, fmi2Error, "logStatusError", msg);
         Py_CLEAR(s->log_queue);
         Py_CLEAR(s->slave);
+        Py_CLEAR(s->call_error);
         Py_CLEAR(s->cls);
         drop_layout(s);
         PyGILState_Release(g);
@@ -679,6 +842,7 @@ FMI2_EXPORT void fmi2FreeInstance(fmi2Component c)
     drop_layout(s);
     Py_CLEAR(s->log_queue);
     Py_CLEAR(s->slave);
+    Py_CLEAR(s->call_error);
     Py_CLEAR(s->cls);
     PyGILState_Release(g);
     free_shell_memory(s);
@@ -689,6 +853,7 @@ FMI2_EXPORT fmi2Status fmi2SetupExperiment(fmi2Component c, fmi2Boolean toleranc
                                            fmi2Boolean stopTimeDefined, fmi2Real stopTime)
 {
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2SetupExperiment);
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2OK;
     if (flush_inputs(s) != 0) status = fmi2Error;
@@ -710,15 +875,19 @@ FMI2_EXPORT fmi2Status fmi2SetupExperiment(fmi2Component c, fmi2Boolean toleranc
 FMI2_EXPORT fmi2Status fmi2EnterInitializationMode(fmi2Component c)
 {
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2EnterInitializationMode);
     return call_plain(s, "enter_initialization_mode", "fmi2EnterInitializationMode");
 }
 
+/* The simulator is made here: parameters out of range are refused (fmi2Error, the messages of
+ * `jointfmu check`) and leave the instance in the error state. */
 FMI2_EXPORT fmi2Status fmi2ExitInitializationMode(fmi2Component c)
 {
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2ExitInitializationMode);
     fmi2Status status = call_plain(s, "exit_initialization_mode", "fmi2ExitInitializationMode");
     PyGILState_STATE g = PyGILState_Ensure();
-    fetch_layout(s); /* the simulator is made here */
+    fetch_layout(s);
     PyGILState_Release(g);
     return status;
 }
@@ -726,13 +895,15 @@ FMI2_EXPORT fmi2Status fmi2ExitInitializationMode(fmi2Component c)
 FMI2_EXPORT fmi2Status fmi2Terminate(fmi2Component c)
 {
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2Terminate);
     return call_plain(s, "terminate", "fmi2Terminate");
 }
 
 FMI2_EXPORT fmi2Status fmi2Reset(fmi2Component c)
 {
     SHELL_OR_ERROR(c);
-    /* as pythonfmu does: a new slave instance, as after fmi2Instantiate */
+    CHECK_STATE(fmi2Reset);
+    /* as pythonfmu does: a new slave instance, as after fmi2Instantiate (state instantiated) */
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2OK;
     if (new_slave(s) != 0) {
@@ -795,12 +966,13 @@ FMI2_EXPORT fmi2Status fmi2SetReal(fmi2Component c, const fmi2ValueReference vr[
                                    const fmi2Real value[])
 {
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2SetReal);
     if (nvr == 0) return fmi2OK;
     if (!vr || !value) {
         shell_log(s, fmi2Error, "fmi2SetReal: vr or value is NULL with nvr = %zu", nvr);
         return fmi2Error;
     }
-    if (s->has_layout && !s->py_pending) {
+    if (s->has_layout && !s->py_pending && s->state == ST_STEP_COMPLETE) {
         /* the fast path: every value a valid input (the checks of
          * ModalSimulator.set_input_value), or the whole call goes through Python */
         size_t k;
@@ -910,6 +1082,7 @@ FMI2_EXPORT fmi2Status fmi2GetReal(fmi2Component c, const fmi2ValueReference vr[
                                    fmi2Real value[])
 {
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2GetReal);
     if (nvr == 0) return fmi2OK;
     if (!vr || !value) {
         shell_log(s, fmi2Error, "fmi2GetReal: vr or value is NULL with nvr = %zu", nvr);
@@ -934,48 +1107,49 @@ FMI2_EXPORT fmi2Status fmi2GetReal(fmi2Component c, const fmi2ValueReference vr[
 /* No Integer, Boolean or String variables (modelDescription.xml): only empty calls succeed. */
 #define NO_VARIABLES_OF_TYPE(fname, tname)                                                   \
     SHELL_OR_ERROR(c);                                                                       \
+    CHECK_STATE(fname);                                                                      \
     (void)vr;                                                                                \
     (void)value;                                                                             \
     if (nvr == 0) return fmi2OK;                                                             \
     shell_log(s, fmi2Error, "%s: this FMU has no %s variables (value reference %u); its "    \
-              "variables are all Real, as in modelDescription.xml", fname, tname,            \
+              "variables are all Real, as in modelDescription.xml", #fname, tname,           \
               vr ? vr[0] : 0u);                                                              \
     return fmi2Error;
 
 FMI2_EXPORT fmi2Status fmi2GetInteger(fmi2Component c, const fmi2ValueReference vr[], size_t nvr,
                                       fmi2Integer value[])
 {
-    NO_VARIABLES_OF_TYPE("fmi2GetInteger", "Integer")
+    NO_VARIABLES_OF_TYPE(fmi2GetInteger, "Integer")
 }
 
 FMI2_EXPORT fmi2Status fmi2GetBoolean(fmi2Component c, const fmi2ValueReference vr[], size_t nvr,
                                       fmi2Boolean value[])
 {
-    NO_VARIABLES_OF_TYPE("fmi2GetBoolean", "Boolean")
+    NO_VARIABLES_OF_TYPE(fmi2GetBoolean, "Boolean")
 }
 
 FMI2_EXPORT fmi2Status fmi2GetString(fmi2Component c, const fmi2ValueReference vr[], size_t nvr,
                                      fmi2String value[])
 {
-    NO_VARIABLES_OF_TYPE("fmi2GetString", "String")
+    NO_VARIABLES_OF_TYPE(fmi2GetString, "String")
 }
 
 FMI2_EXPORT fmi2Status fmi2SetInteger(fmi2Component c, const fmi2ValueReference vr[], size_t nvr,
                                       const fmi2Integer value[])
 {
-    NO_VARIABLES_OF_TYPE("fmi2SetInteger", "Integer")
+    NO_VARIABLES_OF_TYPE(fmi2SetInteger, "Integer")
 }
 
 FMI2_EXPORT fmi2Status fmi2SetBoolean(fmi2Component c, const fmi2ValueReference vr[], size_t nvr,
                                       const fmi2Boolean value[])
 {
-    NO_VARIABLES_OF_TYPE("fmi2SetBoolean", "Boolean")
+    NO_VARIABLES_OF_TYPE(fmi2SetBoolean, "Boolean")
 }
 
 FMI2_EXPORT fmi2Status fmi2SetString(fmi2Component c, const fmi2ValueReference vr[], size_t nvr,
                                      const fmi2String value[])
 {
-    NO_VARIABLES_OF_TYPE("fmi2SetString", "String")
+    NO_VARIABLES_OF_TYPE(fmi2SetString, "String")
 }
 
 /* -------------------------------------------------------------------- FMU state (sec. 2.1.8) */
@@ -1049,6 +1223,9 @@ FMI2_EXPORT fmi2Status fmi2SetFMUstate(fmi2Component c, fmi2FMUstate FMUstate)
     } else {
         Py_DECREF(r);
         drain_log(s);
+        /* the FMI state saved with the FMU state; fmi2Terminated answers for it */
+        sync_state(s);
+        s->step_refused = s->state == ST_STEP_FAILED;
     }
     fetch_layout(s); /* the slave may have made or dropped its simulator */
     PyGILState_Release(g);
@@ -1149,14 +1326,30 @@ FMI2_EXPORT fmi2Status fmi2DeSerializeFMUstate(fmi2Component c, const fmi2Byte s
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2Error;
     PyObject *b = PyBytes_FromStringAndSize(serializedState, (Py_ssize_t)size);
-    PyObject *obj = b ? PyObject_CallMethod(s->cls, "_fmu_state_from_bytes", "(O)", b) : NULL;
-    Py_XDECREF(b);
-    if (!obj) {
-        report_exception(s, "fmi2DeSerializeFMUstate");
+    /* a corrupt, truncated or other build's state is refused here already (fmi2SetFMUstate
+     * checks again, against the simulator too) */
+    PyObject *problem = b ? PyObject_CallMethod(s->slave, "_state_problem", "(O)", b) : NULL;
+    PyObject *obj = NULL;
+    if (problem && problem != Py_None) {
+        PyObject *text = PyObject_Str(problem);
+        const char *t = text ? PyUnicode_AsUTF8(text) : NULL;
+        PyErr_Clear();
+        shell_log(s, fmi2Error, "fmi2DeSerializeFMUstate: FMU state rejected: %s",
+                  t ? t : "(unreadable reason)");
+        Py_XDECREF(text);
+    } else if (problem) {
+        obj = PyObject_CallMethod(s->cls, "_fmu_state_from_bytes", "(O)", b);
+        if (!obj) {
+            report_exception(s, "fmi2DeSerializeFMUstate");
+        } else {
+            drain_log(s);
+            status = wrap_state(s, obj, FMUstate);
+        }
     } else {
-        drain_log(s);
-        status = wrap_state(s, obj, FMUstate);
+        report_exception(s, "fmi2DeSerializeFMUstate");
     }
+    Py_XDECREF(problem);
+    Py_XDECREF(b);
     PyGILState_Release(g);
     return status;
 }
@@ -1171,6 +1364,7 @@ FMI2_EXPORT fmi2Status fmi2GetDirectionalDerivative(fmi2Component c,
     (void)vUnknown_ref, (void)nUnknown, (void)vKnown_ref, (void)nKnown, (void)dvKnown,
         (void)dvUnknown;
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2GetDirectionalDerivative);
     shell_log(s, fmi2Error, "fmi2GetDirectionalDerivative is not supported "
               "(providesDirectionalDerivative=\"false\" in modelDescription.xml)");
     return fmi2Error;
@@ -1183,6 +1377,7 @@ FMI2_EXPORT fmi2Status fmi2SetRealInputDerivatives(fmi2Component c, const fmi2Va
 {
     (void)vr, (void)order, (void)value;
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2SetRealInputDerivatives);
     if (nvr == 0) return fmi2OK;
     shell_log(s, fmi2Error, "fmi2SetRealInputDerivatives is not supported: inputs are held over "
               "a step (canInterpolateInputs=\"false\" in modelDescription.xml)");
@@ -1195,6 +1390,7 @@ FMI2_EXPORT fmi2Status fmi2GetRealOutputDerivatives(fmi2Component c, const fmi2V
 {
     (void)vr, (void)order, (void)value;
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2GetRealOutputDerivatives);
     if (nvr == 0) return fmi2OK;
     shell_log(s, fmi2Error, "fmi2GetRealOutputDerivatives is not supported "
               "(maxOutputDerivativeOrder is 0 in modelDescription.xml)");
@@ -1207,6 +1403,7 @@ FMI2_EXPORT fmi2Status fmi2DoStep(fmi2Component c, fmi2Real currentCommunication
 {
     (void)noSetFMUStatePriorToCurrentPoint;
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2DoStep);
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2Error;
     PyObject *t = take_dirty(s);
@@ -1231,6 +1428,12 @@ FMI2_EXPORT fmi2Status fmi2DoStep(fmi2Component c, fmi2Real currentCommunication
         if (flags & 2) fetch_layout(s);
         if (flags & 1) s->py_pending = 0; /* doStep hands every held input over */
         s->out_fresh = (flags & 4) != 0;
+        /* sec. 4.2.3: fmi2LastSuccessfulTime is the end of the last step taken; a refused step
+         * ends at its start, and fmi2Terminated says the slave cannot go on by itself */
+        s->state = (flags & 1) ? ST_STEP_COMPLETE : ST_STEP_FAILED;
+        s->step_refused = !(flags & 1);
+        s->last_time = (flags & 1) ? currentCommunicationPoint + communicationStepSize
+                                   : currentCommunicationPoint;
     }
     PyGILState_Release(g);
     return status;
@@ -1239,45 +1442,70 @@ FMI2_EXPORT fmi2Status fmi2DoStep(fmi2Component c, fmi2Real currentCommunication
 FMI2_EXPORT fmi2Status fmi2CancelStep(fmi2Component c)
 {
     SHELL_OR_ERROR(c);
+    CHECK_STATE(fmi2CancelStep);
     shell_log(s, fmi2Error, "fmi2CancelStep is not supported: doStep always completes before it "
               "returns (canRunAsynchronuously=\"false\")");
     return fmi2Error;
 }
 
-#define NO_STATUS(fname)                                                                      \
-    (void)s_kind;                                                                             \
-    (void)value;                                                                              \
+/* ------------------------------------------------------------- status queries (sec. 4.2.3)
+ * What a master asks after fmi2DoStep returned fmi2Discard: fmi2Terminated (true: the last step
+ * was refused and the slave cannot go on by itself; it needs an FMU state restored, or a reset)
+ * and fmi2LastSuccessfulTime (the end of the last step taken; the start of a refused step; NaN
+ * before the first step).  pythonfmu 0.7.0's binary answers these two the same way.  doStep
+ * never returns fmi2Pending, so the other kinds have nothing to report: fmi2Discard, as sec.
+ * 2.1.3 says for a status the slave cannot return. */
+static fmi2Status no_status(Shell *s, const char *call, fmi2StatusKind kind)
+{
+    shell_log(s, fmi2Discard, "%s: status kind %d has nothing to report (doStep never returns "
+              "fmi2Pending); this FMU answers fmi2GetBooleanStatus(fmi2Terminated) and "
+              "fmi2GetRealStatus(fmi2LastSuccessfulTime)", call, (int)kind);
+    return fmi2Discard;
+}
+
+#define STATUS_ARGS(call)                                                                     \
     SHELL_OR_ERROR(c);                                                                        \
-    shell_log(s, fmi2Error, "%s is not supported: doStep is synchronous and returns its own " \
-              "status (sec. 4.2.3)", fname);                                                  \
-    return fmi2Error;
+    CHECK_STATE(call);                                                                        \
+    if (!value) {                                                                             \
+        shell_log(s, fmi2Error, "%s: value is NULL", #call);                                  \
+        return fmi2Error;                                                                     \
+    }
 
 FMI2_EXPORT fmi2Status fmi2GetStatus(fmi2Component c, const fmi2StatusKind s_kind,
                                      fmi2Status *value)
 {
-    NO_STATUS("fmi2GetStatus")
+    STATUS_ARGS(fmi2GetStatus);
+    return no_status(s, "fmi2GetStatus", s_kind);
 }
 
 FMI2_EXPORT fmi2Status fmi2GetRealStatus(fmi2Component c, const fmi2StatusKind s_kind,
                                          fmi2Real *value)
 {
-    NO_STATUS("fmi2GetRealStatus")
+    STATUS_ARGS(fmi2GetRealStatus);
+    if (s_kind != fmi2LastSuccessfulTime) return no_status(s, "fmi2GetRealStatus", s_kind);
+    *value = s->last_time;
+    return fmi2OK;
 }
 
 FMI2_EXPORT fmi2Status fmi2GetIntegerStatus(fmi2Component c, const fmi2StatusKind s_kind,
                                             fmi2Integer *value)
 {
-    NO_STATUS("fmi2GetIntegerStatus")
+    STATUS_ARGS(fmi2GetIntegerStatus);
+    return no_status(s, "fmi2GetIntegerStatus", s_kind);
 }
 
 FMI2_EXPORT fmi2Status fmi2GetBooleanStatus(fmi2Component c, const fmi2StatusKind s_kind,
                                             fmi2Boolean *value)
 {
-    NO_STATUS("fmi2GetBooleanStatus")
+    STATUS_ARGS(fmi2GetBooleanStatus);
+    if (s_kind != fmi2Terminated) return no_status(s, "fmi2GetBooleanStatus", s_kind);
+    *value = s->step_refused ? 1 : 0;
+    return fmi2OK;
 }
 
 FMI2_EXPORT fmi2Status fmi2GetStringStatus(fmi2Component c, const fmi2StatusKind s_kind,
                                            fmi2String *value)
 {
-    NO_STATUS("fmi2GetStringStatus")
+    STATUS_ARGS(fmi2GetStringStatus);
+    return no_status(s, "fmi2GetStringStatus", s_kind);
 }
