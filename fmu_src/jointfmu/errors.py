@@ -116,7 +116,11 @@ class FmiCallError(JointFmuError, RuntimeError):
     allowed in the FMU's state (sec. 4.2.4), an unknown value reference or a variable that cannot
     be set then, an FMU state that is not one of this FMU's, parameters out of range at
     fmi2ExitInitializationMode.  Raised by the FMU's slave towards its binary, never to a user:
-    jointfmu's native binary returns fmi2Error, pythonfmu's fmi2Fatal (it has no other way)."""
+    jointfmu's native binary returns fmi2Error, pythonfmu's fmi2Fatal (it has no other way).
+    Its repr is its message: pythonfmu's binary logs the repr of an exception."""
+
+    def __repr__(self) -> str:
+        return str(self)
 
 
 def did_you_mean(key: str, allowed: Iterable[str]) -> str:

@@ -157,17 +157,22 @@ class JointSlave(Fmi2Slave):
 
     # ----------------------------------------------------------------------- FMI's rules
     def _refuse(self, message: str, state: int | None = None):
-        """Refuse the current FMI call: an error-status message, optionally a new FMI state
-        (the error state), and :class:`FmiCallError` to the binary (fmi2Error; pythonfmu's
-        binary: fmi2Fatal).  The caller has changed nothing else."""
+        """Refuse the current FMI call: optionally a new FMI state (the error state), and
+        :class:`FmiCallError` to the binary with the message.  The caller has changed nothing
+        else.  jointfmu's native shell answers fmi2Error after the message, logged here with
+        error status; pythonfmu's binary answers fmi2Fatal and logs, with that status, its own
+        text followed by the exception's repr, which is the message."""
         if state is not None:
             self._fmi_state = state
-        self.log(message, Fmi2Status.error)
-        if not self._native:
-            # pythonfmu 0.7.0's wrapper answers the exception with fmi2Fatal and drops one
+        if self._native:
+            self.log(message, Fmi2Status.error)
+        else:
+            # pythonfmu 0.7.0's wrapper (PySlaveInstance::handle_py_exception) first empties the
+            # log queue with the exception pending, which loses the exception (its text then
+            # reads "unknown error"; measured): so nothing is queued here.  It also drops one
             # reference each to this instance, its class and its log queue that it never took
-            # (PySlaveInstance::handle_py_exception -> cleanPyObject); keep one of each alive for
-            # it, or the next call or fmi2FreeInstance works on freed objects.
+            # (cleanPyObject): keep one of each alive for it, or the next call or
+            # fmi2FreeInstance works on freed objects (measured: a segfault).
             _REFUSED.append((self, type(self), self.log_queue))
         raise FmiCallError(message)
 
