@@ -8,10 +8,8 @@ pythonfmu 0.7.0 facts this class is written around (read in its source):
 
 - The builder instantiates the class once at build time, and ``fmi2Reset`` instantiates it anew,
   so ``__init__`` only reads the parameter set and registers variables; the simulator is created
-  at ``exit_initialization_mode`` (or the first step).
-- A Python exception escaping any method becomes ``fmi2Fatal`` and the C wrapper drops its
-  references to the instance, so nothing here raises into the wrapper: problems are logged with
-  ``Fmi2Status.error`` and ``do_step`` returns False (the wrapper reports ``fmi2Discard``).
+  at ``exit_initialization_mode``.  The builder also reads start values with ``get_real`` in the
+  state "instantiated" (:meth:`JointSlave.to_xml`).
 - FMU states are whatever ``_get_fmu_state`` returns; ``_fmu_state_to_bytes`` and
   ``_fmu_state_from_bytes`` are called on the class.  Here a state is an immutable ``bytes``.
 - ``self.log`` messages reach the host's logger only while debug logging is on
@@ -19,14 +17,17 @@ pythonfmu 0.7.0 facts this class is written around (read in its source):
   off the host sees only the returned status.
 - pythonfmu cannot return fmi2Error from Python: ``do_step`` -> True/False gives fmi2OK or
   fmi2Discard, every method fmi2OK unless it raises, and then fmi2Fatal (measured with pythonfmu
-  0.7.0's binary).  Its wrapper then releases one reference each to the instance, its class and
-  its log queue that it never took; a second such call used freed objects (a segfault, measured).
+  0.7.0's binary).  Its wrapper then empties the log queue with the exception pending (which
+  loses the exception) and releases one reference each to the instance, its class and its log
+  queue that it never took; a second such call used freed objects (a segfault, measured).
+  Nothing here raises except a deliberate refusal (:meth:`JointSlave._refuse`), which allows for
+  both.
 
 FMI 2.0's rules.  The slave follows the co-simulation state machine (FMI 2.0 standard, sec.
 4.2.4; :data:`ALLOWED_STATES`): a call not allowed in the current state, an unknown value
 reference, a variable that cannot be set in that state, an FMU state that is not one of this
-FMU's and parameters out of range at ``exit_initialization_mode`` are refused: an error-status
-message, nothing changed (the bad parameters leave the FMU in the error state), and
+FMU's and parameters out of range at ``exit_initialization_mode`` are refused: a message,
+nothing changed (the bad parameters leave the FMU in the error state), and
 :class:`~.errors.FmiCallError` raised to the binary.  jointfmu's native binary
 (``native/fmi2_shell.c``, which checks the same state machine itself first) answers it with
 fmi2Error; pythonfmu's binary can only answer fmi2Fatal, the nearest status that still stops the
