@@ -49,11 +49,14 @@ BINARIES = [pytest.param("native", marks=pytest.mark.skipif(not _can_compile(),
 
 
 @pytest.fixture(scope="module")
-def fmus(tmp_path_factory):
+def fmus(tmp_path_factory, example_fmus):
     out = tmp_path_factory.mktemp("libcosim")
     made = {}
     for name in ("tray_nominal", "tray_worn"):
         for kind in ("native", "pythonfmu"):
+            if example_fmus[name].binary["kind"] == kind:
+                made[name, kind] = example_fmus[name].path   # the session's build has it already
+                continue
             try:
                 made[name, kind] = build_fmu(EXAMPLES / f"{name}.toml", out / f"{name}_{kind}.fmu",
                                              binary=kind).path
