@@ -11,12 +11,12 @@ the file readers call it, so that a CSV and a UFF file are judged alike.
 """
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass
 
 import numpy as np
 
 from ..errors import InputError, did_you_mean
+from ..params.names import parse_name, point_name
 
 __all__ = [
     "QUANTITIES",
@@ -47,14 +47,18 @@ CLIP_RUN = 3
 #: (rounding in a written file; a missed or doubled sample is a whole step).
 TIME_TOLERANCE = 0.01
 
-_NAME_RE = re.compile(r"^point\.([A-Za-z][A-Za-z0-9_]*)\.(a|v|x|force)$")
 _NAME_RULE = ("must be point.<label>.a (m/s^2), point.<label>.v (m/s), point.<label>.x (m) or "
               "point.<label>.force (N)")
 
 
 def channel_name(point: str, quantity: str) -> str:
-    """``"point.<point>.<quantity>"``, the one place the name is formatted."""
-    return f"point.{point}.{quantity}"
+    """``"point.<point>.<quantity>"``, formatted by :func:`jointfmu.params.names.point_name`."""
+    return point_name(point, quantity)
+
+
+def _parse(name):
+    parsed = parse_name(name)
+    return parsed if parsed is not None and parsed.kind == "point" else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -73,7 +77,7 @@ class Channel:
     data: np.ndarray
 
     def __post_init__(self) -> None:
-        if not isinstance(self.name, str) or not _NAME_RE.match(self.name):
+        if _parse(self.name) is None:
             raise InputError(f"channel {self.name!r}: {_NAME_RULE}")
         d = np.array(self.data, dtype=float)  # a copy: the record owns its data
         if d.ndim != 1:
@@ -84,12 +88,12 @@ class Channel:
     @property
     def point(self) -> str:
         """Label of the point the channel belongs to."""
-        return _NAME_RE.match(self.name).group(1)  # type: ignore[union-attr]
+        return _parse(self.name).label  # type: ignore[union-attr]
 
     @property
     def quantity(self) -> str:
         """``"a"``, ``"v"``, ``"x"`` or ``"force"``."""
-        return _NAME_RE.match(self.name).group(2)  # type: ignore[union-attr]
+        return _parse(self.name).quantity  # type: ignore[union-attr]
 
     @property
     def unit(self) -> str:
