@@ -29,6 +29,7 @@ from ..analysis.summary import (FULL_RING_DOWNS, QUICK_RING_DOWNS, BuildSummary,
 from ..errors import InputError
 from ..analysis.linear import equivalent_linear
 from ..fileio import check_output_path, swap_into_place
+from ..params.names import mode_name, point_name
 from .figures import new_figure
 from .render import Cell, Table, render_page
 
@@ -218,8 +219,8 @@ def _linear_ringdown(ps, rd: C.RingDown, point: str) -> np.ndarray:
     from scipy import signal
 
     lm = equivalent_linear(ps, np.zeros(ps.n_modes),
-                           inputs=[f"mode[{i + 1}].force" for i in range(ps.n_modes)],
-                           outputs=[f"point.{point}.a"])
+                           inputs=[mode_name(i + 1, "force") for i in range(ps.n_modes)],
+                           outputs=[point_name(point, "a")])
     dsys = signal.StateSpace(lm.A, lm.B, lm.C, lm.D).to_discrete(rd.dt, method="zoh")
     pulse = rd.impulses / rd.dt
     # x_k: state at t_k; the pulse is held over [0, dt).  Sample k >= 1 is read after the step and

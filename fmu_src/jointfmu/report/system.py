@@ -12,6 +12,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..fileio import atomic_write
+from ..params.names import point_name
 from .figures import DPI, new_figure
 from .render import render_page
 
@@ -126,8 +127,9 @@ def _fig_history(df, builds, worst_case, history_dir: Path, path: Path) -> Path:
                 continue
             hp = Path(history_dir) / str(sel.iloc[0]["history"])
             if hp.is_file():
-                h = pd.read_parquet(hp, columns=["time", "point.tip.a"])
-                ax.plot(h["time"], h["point.tip.a"] / G0, color=col, lw=0.6,
+                tip_a = point_name("tip", "a")
+                h = pd.read_parquet(hp, columns=["time", tip_a])
+                ax.plot(h["time"], h[tip_a] / G0, color=col, lw=0.6,
                         label=f"controller {_on_off(on)}")
         ax.set_ylabel(f"{b}\ntip a [g]", fontsize=8)
         ax.grid(alpha=0.3)
