@@ -19,6 +19,7 @@ from typing import Callable
 import numpy as np
 
 from ..errors import InputError
+from ..params.names import BASE_ACCELERATION
 from .blocks import HeldProfile
 from .component import PythonComponent
 
@@ -211,5 +212,5 @@ def loads_component(values, step: float) -> PythonComponent:
         No inputs; the same arithmetic as the loads FMU (:class:`.blocks.HeldProfile`).
     """
     profile = HeldProfile(values, step)
-    return PythonComponent("the loads model", {}, {"base.acceleration": lambda: profile.value},
+    return PythonComponent("the loads model", {}, {BASE_ACCELERATION: lambda: profile.value},
                            profile.do_step)

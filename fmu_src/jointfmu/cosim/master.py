@@ -46,6 +46,8 @@ import numpy as np
 
 from ..errors import InputError, SimulationError
 from ..fileio import atomic_write
+from ..params.names import (BASE_ACCELERATION, BASE_FORCE, ENERGIES, energy_name, mode_name,
+                            point_name)
 from .component import Component
 from .controller import ControllerSettings, damper_component
 from .loads import G0, base_motion, check_case, loads_component
@@ -217,10 +219,10 @@ def system_connections(point: str = ControllerSettings.point,
         ``structure.point.<point>.v -> damper.velocity`` and
         ``damper.force -> structure.point.<point>.force``.
     """
-    out = [Connection("loads", "base.acceleration", "structure", "base.acceleration")]
+    out = [Connection("loads", BASE_ACCELERATION, "structure", BASE_ACCELERATION)]
     if controller:
-        out += [Connection("structure", f"point.{point}.v", "damper", "velocity"),
-                Connection("damper", "force", "structure", f"point.{point}.force")]
+        out += [Connection("structure", point_name(point, "v"), "damper", "velocity"),
+                Connection("damper", "force", "structure", point_name(point, "force"))]
     return tuple(out)
 
 
@@ -233,11 +235,11 @@ SYSTEM_CONNECTIONS: tuple[Connection, ...] = system_connections()
 def recorded_outputs(structure: Component, tip: str, point: str) -> list[str]:
     """The structure outputs a system run keeps: tip and actuator-point motion, interface force,
     energies, modal coordinates (those the structure has, in this order)."""
-    names = [f"point.{tip}.a", f"point.{tip}.v", f"point.{point}.v", f"point.{point}.a",
-             "base.force", "energy.input", "energy.joint", "energy.viscous"]
+    names = [point_name(tip, "a"), point_name(tip, "v"), point_name(point, "v"),
+             point_name(point, "a"), BASE_FORCE, *(energy_name(e) for e in ENERGIES)]
     k = 1
-    while f"mode[{k}].q" in structure.outputs:
-        names.append(f"mode[{k}].q")
+    while mode_name(k, "q") in structure.outputs:
+        names.append(mode_name(k, "q"))
         k += 1
     seen, out = set(), []
     for n in names:
@@ -354,14 +356,14 @@ def simulate_system(structure: Component, loads: Component, controller: Componen
     """
     rec = recorded_outputs(structure, tip, point)
     parts = {"loads": loads, "structure": structure}
-    record = {"base.acceleration": ("loads", "base.acceleration")}
+    record = {BASE_ACCELERATION: ("loads", BASE_ACCELERATION)}
     if controller is not None:
         parts["damper"] = controller
         record["actuator.force"] = ("damper", "force")
     record.update((name, ("structure", name)) for name in rec)
     hist, wall = co_simulate(parts, system_connections(point, controller is not None), times,
                              record)
-    history = {"time": hist["time"], "base.acceleration": hist["base.acceleration"],
+    history = {"time": hist["time"], BASE_ACCELERATION: hist[BASE_ACCELERATION],
                "actuator.force": hist.get("actuator.force", np.zeros(len(hist["time"])))}
     history.update((name, hist[name]) for name in rec)
     return SystemRun(history, case, controller is not None, wall)
@@ -426,16 +428,16 @@ def summarize(run: SystemRun, tip: str = "tip", point: str = "psu_foot",
         amplitude) [m sqrt(kg)], ``wall_time`` [s].
     """
     h = run.history
-    a_tip = h[f"point.{tip}.a"]
+    a_tip = h[point_name(tip, "a")]
     out = {
         "tip_acc_peak": float(np.max(np.abs(a_tip))),
         "tip_acc_rms": rms(a_tip),
-        "base_force_peak": float(np.max(np.abs(h["base.force"]))),
-        "energy_input": float(h["energy.input"][-1]),
-        "energy_joint": float(h["energy.joint"][-1]),
-        "energy_viscous": float(h["energy.viscous"][-1]),
+        "base_force_peak": float(np.max(np.abs(h[BASE_FORCE]))),
+        "energy_input": float(h[energy_name("input")][-1]),
+        "energy_joint": float(h[energy_name("joint")][-1]),
+        "energy_viscous": float(h[energy_name("viscous")][-1]),
         "actuator_force_peak": float(np.max(np.abs(h["actuator.force"]))),
-        "base_acc_rms": rms(h["base.acceleration"]),
+        "base_acc_rms": rms(h[BASE_ACCELERATION]),
     }
     out["tip_acc_peak_g"] = out["tip_acc_peak"] / G0
     out["tip_acc_rms_g"] = out["tip_acc_rms"] / G0
@@ -445,8 +447,8 @@ def summarize(run: SystemRun, tip: str = "tip", point: str = "psu_foot",
     else:
         out["actuator_saturated"] = 0.0
     i = 1
-    while f"mode[{i}].q" in h:
-        q = h[f"mode[{i}].q"]
+    while mode_name(i, "q") in h:
+        q = h[mode_name(i, "q")]
         out[f"q_rms_{i}"] = rms(q)
         out[f"q_amp_{i}"] = math.sqrt(2.0) * rms(q)
         i += 1

@@ -9,6 +9,7 @@ import numpy as np
 
 from ..fmu.info import read_fmu_info
 from ..params import load_parameter_set
+from ..params.names import BASE_FORCE, point_name
 from .components import build_controller_fmu, build_loads_fmu, run_system_of_fmus
 from .master import (SystemSettings, rms, run_system, settings_from_dict, summarize,
                      write_history)
@@ -59,8 +60,8 @@ def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=Non
         amps = [row[f"q_amp_{i}"] for i in range(1, ps.n_modes + 1)]
         lin, how = equivalent_linear_structure(ps, amps)
         lrun = run_system(lin, case, controller_on, s)
-        a_nl = run.history[f"point.{s.tip}.a"]
-        a_li = lrun.history[f"point.{s.tip}.a"]
+        a_nl = run.history[point_name(s.tip, "a")]
+        a_li = lrun.history[point_name(s.tip, "a")]
         rms_nl = rms(a_nl)
         row["lin_model"] = how
         row["lin_tip_acc_rms"] = rms(a_li)
@@ -69,5 +70,5 @@ def run_case(params_path, fmu_path, case: str, controller_on: bool, settings=Non
         row["lin_peak_diff"] = (row["lin_tip_acc_peak"] / row["tip_acc_peak"] - 1.0
                                 if row["tip_acc_peak"] > 0 else 0.0)
         row["lin_waveform_err"] = rms(a_li - a_nl) / rms_nl if rms_nl > 0 else 0.0
-        row["lin_base_force_peak"] = float(np.max(np.abs(lrun.history["base.force"])))
+        row["lin_base_force_peak"] = float(np.max(np.abs(lrun.history[BASE_FORCE])))
     return row

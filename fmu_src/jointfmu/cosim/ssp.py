@@ -46,6 +46,7 @@ from xml.etree import ElementTree as ET
 from ..errors import BuildError, InputError
 from ..fileio import atomic_write, check_output_path
 from ..params import load_parameter_set
+from ..params.names import BASE_ACCELERATION, point_name
 from .components import build_controller_fmu, build_loads_fmu
 from .loads import LOAD_CASES
 from .master import SystemSettings, system_connections
@@ -149,7 +150,8 @@ def system_description(params, case: str, controller_on: bool, settings, *,
     table = [v for v in variable_table(params) if v.causality in ("input", "output")]
     names = {v.name for v in table}
     if controller_on:
-        missing = [n for n in (f"point.{point}.force", f"point.{point}.v") if n not in names]
+        missing = [n for n in (point_name(point, "force"), point_name(point, "v"))
+                   if n not in names]
         if missing:
             raise InputError(f"controller point {point!r}: the structure of {params.set_id} has no "
                              f"{' / '.join(missing)}; its points: "
@@ -203,7 +205,7 @@ def system_description(params, case: str, controller_on: bool, settings, *,
             for v, y in zip(outs, spread(len(outs))):
                 connector(conns, v.name, "output", v.unit, y)
         elif comp == "loads":
-            connector(conns, "base.acceleration", "output", "m/s2", 0.5)
+            connector(conns, BASE_ACCELERATION, "output", "m/s2", 0.5)
         else:
             for name, (kind, unit) in _DAMPER_CONNECTORS.items():
                 connector(conns, name, kind, unit, 0.5)

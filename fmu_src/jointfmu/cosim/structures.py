@@ -27,6 +27,7 @@ import numpy as np
 
 from ..analysis.linear import available_inputs, available_outputs, equivalent_linear
 from ..errors import InputError, SimulationError
+from ..params.names import parse_name
 from .component import Component
 
 __all__ = ["FmuComponent", "LinearStructure", "equivalent_linear_structure", "pin_pythonfmu"]
@@ -269,7 +270,7 @@ def equivalent_linear_structure(params, amplitudes) -> tuple[LinearStructure, st
     (LinearStructure, str)
         The component and the name of the definition used.
     """
-    ins = [n for n in available_inputs(params) if not n.startswith("mode[")]
+    ins = [n for n in available_inputs(params) if parse_name(n).kind != "mode"]
     lm = equivalent_linear(params, np.asarray(amplitudes, float), inputs=ins,
                            outputs=list(available_outputs(params)))
     return (LinearStructure(lm.A, lm.B, lm.C, lm.D, list(lm.input_names), list(lm.output_names)),
