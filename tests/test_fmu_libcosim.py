@@ -69,7 +69,8 @@ def _inputs(seed):
     """A sine sweep at the shaker and random base acceleration, held over each step."""
     rng = np.random.default_rng(seed)
     t = np.arange(N_STEPS) * (STEP_NS / 1e9)
-    return {"point.shaker.force": (25.0 * np.sin(2 * np.pi * (50.0 * t + 2000.0 * t ** 2))).tolist(),
+    sweep = 25.0 * np.sin(2 * np.pi * (50.0 * t + 2000.0 * t ** 2))
+    return {"point.shaker.force": sweep.tolist(),
             "base.acceleration": (8.0 * rng.standard_normal(N_STEPS)).tolist()}
 
 

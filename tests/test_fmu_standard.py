@@ -614,7 +614,8 @@ def test_rejected_state_is_an_error_and_changes_nothing(open_fmu, kind, bad):
         finally:
             s.fmu.freeFMUstate(st)
     assert status_of(offer) == REFUSED[kind]
-    assert any(st == s.refused and "FMU state rejected" in m for st, m in s.log[n_log:]), s.log[n_log:]
+    assert any(st == s.refused and "FMU state rejected" in m
+               for st, m in s.log[n_log:]), s.log[n_log:]
     after = _drive(s, 10 * 2e-4, 10, 2e-4, 4)
     s.fmu.setFMUstate(saved)
     assert np.array_equal(after, _drive(s, 10 * 2e-4, 10, 2e-4, 4))

@@ -571,7 +571,8 @@ class JointSlave(Fmi2Slave):
         for var, x in zip(self._table, values):
             if (x is None) != var.is_output or not (x is None or type(x) in (int, float)):
                 raise ValueError(f"state holds {x!r} for {var.name}")
-        fmi_state = data.get("fmi_state", STEP_COMPLETE if data.get("initialized") else INSTANTIATED)
+        fmi_state = data.get("fmi_state",
+                             STEP_COMPLETE if data.get("initialized") else INSTANTIATED)
         if type(fmi_state) is not int or fmi_state not in _ANY:
             raise ValueError(f"state has no FMI state ({fmi_state!r})")
         core = data.get("core")

@@ -110,7 +110,8 @@ class ModeValueRule:
 
     @property
     def summary(self) -> str:
-        """Meaning, unit and range, for a missing key: ``"viscous damping ratio, 0 <= zeta < 1"``."""
+        """Meaning, unit and range, for a missing key (``"viscous damping ratio, 0 <= zeta <
+        1"``)."""
         unit = f" in {self.unit_text}" if self.unit_text else ""
         return f"{self.meaning}{unit}, {self.rule()}"
 
@@ -150,7 +151,8 @@ class ModeValueRule:
         return allowed, hint
 
 
-_SEGALMAN = 'Segalman, "A four-parameter Iwan model for lap-type joints", J. Appl. Mech. 72(5), 2005'
+_SEGALMAN = ('Segalman, "A four-parameter Iwan model for lap-type joints", J. Appl. Mech. '
+             '72(5), 2005')
 
 #: The six mode values, in the order of the file, the FMU parameters and the .ssv.
 MODE_VALUE_RULES: tuple[ModeValueRule, ...] = (
