@@ -4,9 +4,11 @@ A fitted model is no substitute for qualification testing; defer to the applicab
 standards and licensed engineering practice.
 
 The public names are those of :mod:`.errors` and :mod:`.params` (their ``__all__``) and the
-physics core below.  The FMU, reports, sweeps and linear models are used from their modules:
-``jointfmu.build``, ``.report``, ``.sweep``, ``.system``, ``.linear``, ``.characterize``,
-``.reference``.
+physics core below.  Everything else is used from its layer's subpackage: ``jointfmu.records``
+(ring-down record files), ``.fmu`` (build, info, run, ssv), ``.analysis`` (characterize, runners,
+summary, linear), ``.lumped`` (discrete-joint structures), ``.identify`` (fitting records),
+``.cosim`` (master loop, components, sweep, SSP export), ``.report`` (pages), ``.cli``.
+This file travels inside every FMU: it imports nothing above params and physics.
 """
 from . import errors as _errors
 from . import params as _params
