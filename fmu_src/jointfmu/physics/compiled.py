@@ -50,7 +50,7 @@ import numpy as np
 from . import kernel as _K
 
 __all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "step_all", "refresh", "CACHE_FILE",
-           "cache_dir_candidates", "bind"]
+           "cache_dir_candidates", "bind", "compile_source", "jit_footer"]
 
 NAME = "numba"
 
@@ -69,13 +69,15 @@ def _functions(source: str) -> list[str]:
     return [node.name for node in ast.parse(source).body if isinstance(node, ast.FunctionDef)]
 
 
-def _footer(source: str) -> str:
+def jit_footer(source: str, cold=()) -> str:
+    """The footer that compiles every top-level function of ``source`` with Numba: those named
+    in ``cold`` without ``forceinline`` (rarely taken branches kept out of the hot loop)."""
     # All functions are rebound before any is called: Numba resolves each callee as a global
     # when its caller is first compiled.
     return (
         "\n\n# ---- appended by jointfmu._compiled: the functions above, compiled by Numba ----\n"
         "import numba as _numba\n"
-        + "".join(f"{name} = _numba.njit({_JIT_OPTIONS_COLD if name in _K.COLD else _JIT_OPTIONS})"
+        + "".join(f"{name} = _numba.njit({_JIT_OPTIONS_COLD if name in cold else _JIT_OPTIONS})"
                   f"({name})\n" for name in _functions(source))
     )
 
@@ -124,14 +126,13 @@ def _write_once(path: Path, text: bytes) -> None:
             os.unlink(tmp)
 
 
-def _place_source() -> tuple[Path, str]:
-    source = Path(_K.__file__).read_text(encoding="utf-8")
-    text = (source + _footer(source)).encode("utf-8")
+def _place_source(source: str, stem: str, cold) -> tuple[Path, str]:
+    text = (source + jit_footer(source, cold)).encode("utf-8")
     digest = hashlib.sha256(text).hexdigest()[:16]
-    name = f"jfmu_kernel_{digest}"
+    name = f"jfmu_{stem}_{digest}"
     errors = []
     for base in cache_dir_candidates():
-        folder = base / f"kernel-{digest}"
+        folder = base / f"{stem}-{digest}"
         try:
             folder.mkdir(parents=True, exist_ok=True)
             path = folder / f"{name}.py"
@@ -144,12 +145,38 @@ def _place_source() -> tuple[Path, str]:
     raise ImportError("no writable cache folder for the compiled kernel: " + "; ".join(errors))
 
 
-def _load():
+def compile_source(source: str, stem: str, cold=()):
+    """Compile every top-level function of the kernel-style ``source`` with Numba, cached.
+
+    The source with :func:`jit_footer` appended is written once to
+    ``<cache folder>/<stem>-<hash16>/jfmu_<stem>_<hash16>.py`` (see the module docstring) and
+    imported from there (once per process).  The physics kernel is compiled this way; so is any
+    other module of scalar loops on arrays written like it (the discrete-joint structure's step).
+
+    Parameters
+    ----------
+    source : str
+        Python source: imports of NumPy/math and top-level functions only.
+    stem : str
+        Name part of the cache folder and module, e.g. ``"kernel"``.
+    cold : sequence of str
+        Functions compiled without ``forceinline``.
+
+    Returns
+    -------
+    (Path, module)
+        The cached source file and the imported module.
+
+    Raises
+    ------
+    ImportError
+        ``JOINTFMU_KERNEL=python`` is set, Numba is missing, or no cache folder is writable.
+    """
     if os.environ.get("JOINTFMU_KERNEL", "").strip().lower() == "python":
         raise ImportError("JOINTFMU_KERNEL=python is set")
     import numba  # noqa: F401 - fail here, with numba's own message, when it is missing
 
-    path, name = _place_source()
+    path, name = _place_source(source, stem, tuple(cold))
     mod = sys.modules.get(name)
     if mod is None:  # two FMUs in one process share one compiled kernel
         spec = importlib.util.spec_from_file_location(name, path)
@@ -157,6 +184,10 @@ def _load():
         spec.loader.exec_module(mod)
         sys.modules[name] = mod
     return path, mod
+
+
+def _load():
+    return compile_source(Path(_K.__file__).read_text(encoding="utf-8"), "kernel", _K.COLD)
 
 
 def _self_check(mod) -> None:

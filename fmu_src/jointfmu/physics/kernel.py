@@ -62,7 +62,7 @@ from __future__ import annotations
 import math
 
 #: Functions taken rarely, which a compiler should call rather than inline into the hot loop.
-COLD = ("_onset_correction",)
+COLD = ("_onset_correction", "onset_crossing")
 
 # Indices into the per-mode constant table ``jc`` (shape (N, NJC)).
 # (CKC = -CK (E2 - 1), the factor of the tangent's slope, computed once.)
@@ -360,27 +360,34 @@ def joint_set_virgin(i, u, jc, js):
     js[i, CLOSE_U] = 0.0
 
 
-def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
-    """Correct a step that crosses the onset of macro-slip on the current branch (beta > 0).
+def onset_crossing(i, q0, v0, a0, q1, h, jc, js):
+    """Where a step of joint ``i``'s coordinate crosses the onset of macro-slip on its branch.
 
-    There the joint's tangent drops from S (the point mass of the density) to 0, a jump in g'
-    that the Taylor expansion of the step cannot see.  With tau* the crossing time and v* the
-    velocity there, the forcing gains S v* (t - tau*) after it, which adds
-    S v* (h - tau*)^2 / 2 to the velocity and S v* (h - tau*)^3 / 6 to the displacement (leading
-    terms).  Returns the corrected displacement and the velocity change.
+    The step goes from ``q0`` (velocity ``v0``, acceleration ``a0``) to ``q1`` in time ``h``,
+    without a velocity reversal.  At the onset the joint's tangent drops from S (the point mass
+    of the density at phimax, beta > 0) to 0.
+
+    Returns
+    -------
+    r : float
+        Time left in the step after the crossing, h - tau*; -1.0 when the step does not cross
+        the onset (it starts beyond it, moves away from it, or the branch closes before it).
+    jump : float
+        S v*, with v* the velocity at the crossing: the drop of the slope of the joint force
+        there (0.0 when there is no crossing).
     """
     dirn = 1.0 if v0 > 0.0 else -1.0
     ur, fr, er, c = _root(i, js)
     x0 = abs(q0 - ur) * (0.5 if c == 2.0 else 1.0)  # |q0 - ur| / c, exactly
     if x0 >= jc[i, PHIMAX] or (q0 - ur) * dirn < 0.0:
-        return q1, 0.0
+        return -1.0, 0.0
     us = ur + dirn * c * jc[i, PHIMAX]
     if (q1 - us) * dirn <= 0.0:
-        return q1, 0.0
+        return -1.0, 0.0
     if js[i, DEPTH] != 0.0:
         uc = js[i, CLOSE_U]
         if (us - uc) * dirn > 0.0:
-            return q1, 0.0  # the branch closes before its onset
+            return -1.0, 0.0  # the branch closes before its onset
     # crossing time from q0 + v0 t + a0 t^2 / 2 = us (root nearest 0 in [0, h])
     d = us - q0
     disc = v0 * v0 + 2.0 * a0 * d
@@ -393,8 +400,21 @@ def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
     if ts > h:
         ts = h
     vs = v0 + a0 * ts
-    r = h - ts
-    jump = jc[i, SPOINT] * vs
+    return h - ts, jc[i, SPOINT] * vs
+
+
+def _onset_correction(i, q0, v0, a0, q1, h, jc, js, stk):
+    """Correct a step that crosses the onset of macro-slip on the current branch (beta > 0).
+
+    There the joint's tangent drops from S (the point mass of the density) to 0, a jump in g'
+    that the Taylor expansion of the step cannot see.  With tau* the crossing time and v* the
+    velocity there (:func:`onset_crossing`), the forcing gains S v* (t - tau*) after it, which
+    adds S v* (h - tau*)^2 / 2 to the velocity and S v* (h - tau*)^3 / 6 to the displacement
+    (leading terms).  Returns the corrected displacement and the velocity change.
+    """
+    r, jump = onset_crossing(i, q0, v0, a0, q1, h, jc, js)
+    if r < 0.0:
+        return q1, 0.0
     return q1 + jump * r * r * r / 6.0, jump * r * r * 0.5
 
 
