@@ -327,6 +327,93 @@ def _cmd_linearize(args: argparse.Namespace) -> int:
     return 0
 
 
+# --- modes, virtual-test (discrete-joint structures, see lumped/) ---------------------------------
+def _args_modes(p: argparse.ArgumentParser) -> None:
+    p.add_argument("lumped", metavar="LUMPED.toml", help="discrete-joint structure (jointfmu-lumped/1)")
+    p.add_argument("-o", "--output", metavar="TEMPLATE.toml",
+                   help="write the modal-Iwan template (jointfmu-params/1) of the lowest modes")
+    p.add_argument("--build", metavar="BUILD", help="a build of the file (label or id; default: "
+                   "the file's own)")
+    p.add_argument("--count", type=int, metavar="N", help="modes in the template (default: the "
+                   "file's [modes] count, else its labels, else all)")
+
+
+def _cmd_modes(args: argparse.Namespace) -> int:
+    """Print the stuck-joint modes; write the modal-Iwan template."""
+    from ..lumped.model import load_lumped
+    from ..lumped.modes import format_modes, stuck_modes, write_template
+
+    model = load_lumped(args.lumped, args.build)
+    modes = stuck_modes(model)
+    print(format_modes(model, modes))
+    if args.output:
+        print(f"wrote {write_template(model, args.output, args.count)}")
+    return 0
+
+
+def _number_list(text: str, option: str) -> tuple[float, ...]:
+    from ..errors import InputError
+
+    try:
+        values = tuple(float(x) for x in text.split(",") if x.strip())
+    except ValueError:
+        raise InputError(f"{option} {text!r}: expected numbers separated by commas, "
+                         "e.g. 50,200,1000") from None
+    if not values:
+        raise InputError(f"{option} {text!r}: expected at least one number")
+    return values
+
+
+def _args_virtual_test(p: argparse.ArgumentParser) -> None:
+    p.add_argument("lumped", metavar="LUMPED.toml", help="discrete-joint structure (jointfmu-lumped/1)")
+    p.add_argument("--impact", required=True, metavar="POINT", help="point the hammer hits "
+                   "(role input or both)")
+    p.add_argument("--levels", required=True, metavar="F1,F2,...",
+                   help="peak impact forces in N, one record each")
+    p.add_argument("--sensors", metavar="P1,P2,...", help="points sensed (default: every point "
+                   "with role output or both)")
+    p.add_argument("--rate", type=float, default=5120.0, metavar="HZ", help="sample rate (5120)")
+    p.add_argument("--duration", type=float, default=2.0, metavar="S",
+                   help="record length with the pre-trigger (2.0)")
+    p.add_argument("--snr", type=float, default=40.0, metavar="DB",
+                   help="signal-to-noise ratio per channel in dB, 'inf' for none (40)")
+    p.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the noise (0)")
+    p.add_argument("--pulse", type=float, default=5e-4, metavar="S",
+                   help="duration of the half-sine force pulse (0.0005)")
+    p.add_argument("--pretrigger", type=float, default=0.1, metavar="S",
+                   help="recorded before the impact (0.1)")
+    p.add_argument("--quantity", choices=("a", "v", "x"), default="a",
+                   help="what the sensors measure: acceleration (default), velocity, displacement")
+    p.add_argument("--clip", type=float, metavar="RANGE",
+                   help="clip the response channels at +-RANGE (their unit), as a saturated sensor")
+    p.add_argument("--format", choices=("csv", "uff", "both"), default="both",
+                   help="record files to write (both)")
+    p.add_argument("--build", metavar="BUILD", help="a build of the file (label or id)")
+    p.add_argument("-o", "--output", required=True, metavar="DIR", help="folder for the records")
+
+
+def _cmd_virtual_test(args: argparse.Namespace) -> int:
+    """Virtual hammer tests of a discrete-joint structure, written as ring-down records."""
+    from ..lumped.model import load_lumped
+    from ..lumped.modes import stuck_modes
+    from ..lumped.virtual_test import VirtualTest, format_levels, run_virtual_test, write_campaign
+
+    model = load_lumped(args.lumped, args.build)
+    sensors = tuple(s.strip() for s in args.sensors.split(",") if s.strip()) if args.sensors else ()
+    settings = VirtualTest(impact=args.impact, levels=_number_list(args.levels, "--levels"),
+                           sensors=sensors, rate=args.rate, duration=args.duration,
+                           snr_db=args.snr, seed=args.seed, pulse=args.pulse,
+                           pretrigger=args.pretrigger, quantity=args.quantity, clip=args.clip)
+    modes = stuck_modes(model)
+    results = run_virtual_test(model, settings, modes)
+    formats = ("csv", "uff") if args.format == "both" else (args.format,)
+    paths = write_campaign(model, settings, results, args.output, formats, __version__)
+    print(f"{model.set_id}: {len(results)} records, impact at {args.impact}")
+    print(format_levels(model, modes, results))
+    print(f"wrote {len(paths)} files to {args.output} (simulated data: no substitute for a test)")
+    return 0
+
+
 # --- the table -------------------------------------------------------------------------------------
 #: name -> (declare arguments, run, one-line help)
 _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
@@ -347,6 +434,11 @@ _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
                "characterization report (HTML + PNG) of one or more builds"),
     "linearize": (_args_linearize, _cmd_linearize,
                   "equivalent linear state-space model at chosen amplitudes (.npz, CSV, JSON)"),
+    "modes": (_args_modes, _cmd_modes,
+              "stuck-joint modes of a discrete-joint structure; write its modal-Iwan template"),
+    "virtual-test": (_args_virtual_test, _cmd_virtual_test,
+                     "virtual hammer tests of a discrete-joint structure, written as ring-down "
+                     "records"),
 }
 
 

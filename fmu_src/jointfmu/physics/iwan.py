@@ -19,6 +19,7 @@ from . import kernel as K
 __all__ = [
     "JointConstants",
     "joint_constants",
+    "slip_force_from_R",
     "kernel_table",
     "backbone",
     "backbone_tangent",
@@ -48,6 +49,19 @@ def joint_constants(Fs, Kt, chi, beta) -> JointConstants:
     R = Fs * (chi + 1.0) / (phimax ** (chi + 2.0) * (beta + a))
     S = beta * Kt / (1.0 + beta)
     return JointConstants(phimax, R, S)
+
+
+def slip_force_from_R(R, Kt, chi, beta):
+    """The slip force Fs of the joint with micro-slip coefficient ``R`` and ``Kt``, ``chi``, ``beta``.
+
+    Segalman 2005 inverse relations (physics sheet secs. 1 and 9), solved for Fs:
+    R = (chi+1) Kt^(chi+2) (beta + a)^(chi+1) / (Fs^(chi+1) (1+beta)^(chi+2)), a = (chi+1)/(chi+2),
+    so Fs = [(chi+1) Kt^(chi+2) (beta + a)^(chi+1) / (R (1+beta)^(chi+2))]^(1/(chi+1)).
+    ``joint_constants(slip_force_from_R(R, ...), Kt, chi, beta).R == R`` (to rounding).
+    """
+    a = (chi + 1.0) / (chi + 2.0)
+    return ((chi + 1.0) * Kt ** (chi + 2.0) * (beta + a) ** (chi + 1.0)
+            / (R * (1.0 + beta) ** (chi + 2.0))) ** (1.0 / (chi + 1.0))
 
 
 def kernel_table(Fs, Kt, chi, beta, Kinf, merge_tol: float) -> np.ndarray:
