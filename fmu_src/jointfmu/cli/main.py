@@ -386,6 +386,8 @@ def _args_virtual_test(p: argparse.ArgumentParser) -> None:
                    help="what the sensors measure: acceleration (default), velocity, displacement")
     p.add_argument("--clip", type=float, metavar="RANGE",
                    help="clip the response channels at +-RANGE (their unit), as a saturated sensor")
+    p.add_argument("--digits", type=int, default=7, metavar="N",
+                   help="significant digits of the recorded values (7)")
     p.add_argument("--format", choices=("csv", "uff", "both"), default="both",
                    help="record files to write (both)")
     p.add_argument("--build", metavar="BUILD", help="a build of the file (label or id)")
@@ -403,7 +405,8 @@ def _cmd_virtual_test(args: argparse.Namespace) -> int:
     settings = VirtualTest(impact=args.impact, levels=_number_list(args.levels, "--levels"),
                            sensors=sensors, rate=args.rate, duration=args.duration,
                            snr_db=args.snr, seed=args.seed, pulse=args.pulse,
-                           pretrigger=args.pretrigger, quantity=args.quantity, clip=args.clip)
+                           pretrigger=args.pretrigger, quantity=args.quantity, clip=args.clip,
+                           digits=args.digits)
     modes = stuck_modes(model)
     results = run_virtual_test(model, settings, modes)
     formats = ("csv", "uff") if args.format == "both" else (args.format,)

@@ -13,16 +13,19 @@ Layout (keys in the order the checks expect; every key is described in examples/
     [structure]  name, build, build_label (default "nominal"), description
     [base]       direction            (optional: DOFs along this axis move with the mounting)
     [[dofs]]     label, mass [kg], axis
-    [[springs]]  dofs = [a] or [a, b], k [N/m], label (optional)
-    [[joints]]   label, dofs = [a] or [a, b], Fs [N], Kt [N/m], chi, beta
+    [[springs]]  dofs = [a] or [a, b] (or more, with gains), k [N/m], label, gains (optional)
+    [[joints]]   label, dofs = [a] or [a, b] (or more, with gains), Fs [N], Kt [N/m], chi, beta
     [damping]    zeta = [...] and zeta_rest   |   rayleigh_alpha [1/s], rayleigh_beta [s]
     [modes]      labels = [...], count        (optional: names and number of template modes)
-    [[points]]   label, dof, direction ("+z"/"-z"), role, test_node (optional)
+    [[points]]   label, dof (or dofs with gains), direction ("+z"/"-z"), role, test_node
     [[builds]]   label, build, description, zeta_factor, joint_factors = {Fs, Kt},
                  joint_values = {chi, beta}
 
 A joint or spring between DOFs a and b acts on the relative displacement u = x_a - x_b; to
-ground, on u = x_a.  Every problem in a file is collected and raised at once as one
+ground, on u = x_a.  With ``gains = [g1, g2, ...]`` it acts on u = g1 x_1 + g2 x_2 + ..., the way
+a connection or a sensor on a rigid body sees the body's translation and rotations through its
+lever arms (e.g. u = z + y rx - x ry for a point at (x, y) of a plate with DOFs z, rx, ry; the
+gains carry the units, m/rad for a lever arm); a point's motion likewise.  Every problem in a file is collected and raised at once as one
 :class:`~jointfmu.errors.ParameterError`, each naming the file, the field, the value and what
 is allowed.  The dataclasses check themselves in ``__post_init__``, so an invalid model cannot
 exist.
@@ -74,11 +77,11 @@ _TOP_KEYS = ("format", "structure", "base", "dofs", "springs", "joints", "dampin
 _STRUCTURE_KEYS = ("name", "build", "build_label", "description")
 _BASE_KEYS = ("direction",)
 _DOF_KEYS = ("label", "mass", "axis")
-_SPRING_KEYS = ("label", "dofs", "k")
-_JOINT_KEYS = ("label", "dofs", "Fs", "Kt", "chi", "beta")
+_SPRING_KEYS = ("label", "dofs", "gains", "k")
+_JOINT_KEYS = ("label", "dofs", "gains", "Fs", "Kt", "chi", "beta")
 _DAMPING_KEYS = ("zeta", "zeta_rest", "rayleigh_alpha", "rayleigh_beta")
 _MODES_KEYS = ("labels", "count")
-_POINT_KEYS = ("label", "dof", "direction", "role", "test_node")
+_POINT_KEYS = ("label", "dof", "dofs", "gains", "direction", "role", "test_node")
 _BUILD_KEYS = ("label", "build", "description", "zeta_factor", "joint_factors", "joint_values")
 _FACTOR_KEYS = ("Fs", "Kt")
 _VALUE_KEYS = ("chi", "beta")
@@ -217,17 +220,24 @@ class Spring:
     dofs: tuple[str, ...]
     k: float
     label: str = ""
+    gains: tuple[float, ...] | None = None
 
     def __post_init__(self) -> None:
         p: list[Problem] = []
         object.__setattr__(self, "dofs", tuple(self.dofs))
-        _check_ends(self.dofs, _PY, f"spring ({self.label or '-'}).dofs", "spring", p)
+        g = _check_ends(self.dofs, self.gains, _PY, f"spring ({self.label or '-'})", "spring", p)
+        object.__setattr__(self, "gains", g)
         k = _ranged(self.k, _PY, f"spring ({self.label or '-'}).k", " in N/m", "must satisfy k > 0 N/m",
                     lambda v: v > 0.0, p)
         if self.label:
             _label(self.label, _PY, "spring.label", p)
         _raise(p)
         object.__setattr__(self, "k", k)
+
+    @property
+    def weights(self) -> tuple[float, ...]:
+        """The gains of its DOFs: given, or (1,) to ground, (1, -1) between two DOFs."""
+        return self.gains if self.gains is not None else _default_gains(len(self.dofs))
 
 
 @dataclass(frozen=True)
@@ -239,7 +249,8 @@ class Joint:
     label : str
         Name.
     dofs : tuple of str
-        ``(a, b)``: acts on u = x_a - x_b; ``(a,)``: from DOF a to ground, u = x_a.
+        ``(a, b)``: acts on u = x_a - x_b; ``(a,)``: from DOF a to ground, u = x_a; any number
+        of DOFs with ``gains``: u = sum g_k x_k.
     Fs : float
         Slip force at the onset of macro-slip [N], > 0.
     Kt : float
@@ -248,6 +259,8 @@ class Joint:
         Exponent of the slider density, -1 < chi <= 0.
     beta : float
         Weight of the point mass of the density at phimax, >= 0.
+    gains : tuple of float, optional
+        One per DOF (see the module docstring).
     """
 
     label: str
@@ -256,16 +269,23 @@ class Joint:
     Kt: float
     chi: float
     beta: float
+    gains: tuple[float, ...] | None = None
 
     def __post_init__(self) -> None:
         p: list[Problem] = []
         object.__setattr__(self, "dofs", tuple(self.dofs))
         _label(self.label, _PY, "joint.label", p)
-        _check_ends(self.dofs, _PY, f"joint ({self.label}).dofs", "joint", p)
+        g = _check_ends(self.dofs, self.gains, _PY, f"joint ({self.label})", "joint", p)
+        object.__setattr__(self, "gains", g)
         _raise(p)
         jp = JointParams(Fs=self.Fs, Kt=self.Kt, chi=self.chi, beta=self.beta)  # range checks
         for name in ("Fs", "Kt", "chi", "beta"):
             object.__setattr__(self, name, getattr(jp, name))
+
+    @property
+    def weights(self) -> tuple[float, ...]:
+        """The gains of its DOFs: given, or (1,) to ground, (1, -1) between two DOFs."""
+        return self.gains if self.gains is not None else _default_gains(len(self.dofs))
 
     @property
     def params(self) -> JointParams:
@@ -342,30 +362,49 @@ class LumpedPoint:
     ----------
     label : str
         Name; record channels are ``point.<label>.a`` and so on.
-    dof : str
-        The DOF.
+    dof : str or tuple of str
+        The DOF, or the DOFs whose combination with ``gains`` is the point's motion.
     direction : str
-        ``"+<axis>"`` or ``"-<axis>"`` with the DOF's axis: the sign of force and motion.
+        ``"+<axis>"`` or ``"-<axis>"`` with the (first) DOF's axis: the sign of force and motion.
     role : str
         ``"input"``, ``"output"`` or ``"both"`` (as in parameter files).
     test_node : int or None
         Node number of the point in test files (Universal File Format), > 0, unique.
+    gains : tuple of float, optional
+        With several DOFs: x_point = sign * sum g_k x_k (lever arms on a rigid body).
     """
 
     label: str
-    dof: str
+    dof: str | tuple[str, ...]
     direction: str
     role: str
     test_node: int | None = None
+    gains: tuple[float, ...] | None = None
 
     def __post_init__(self) -> None:
         p: list[Problem] = []
         _label(self.label, _PY, "point.label", p)
-        _label(self.dof, _PY, f"point ({self.label}).dof", p)
+        if isinstance(self.dof, str) and self.gains is None:
+            _label(self.dof, _PY, f"point ({self.label}).dof", p)
+        else:
+            dofs = (self.dof,) if isinstance(self.dof, str) else tuple(self.dof)
+            object.__setattr__(self, "dof", dofs)
+            g = _check_ends(dofs, self.gains, _PY, f"point ({self.label})", "point", p)
+            object.__setattr__(self, "gains", g)
         _check_direction_form(self.direction, _PY, f"point ({self.label}).direction", p)
         _check_role(self.role, _PY, f"point ({self.label}).role", p)
         _check_test_node(self.test_node, _PY, f"point ({self.label}).test_node", p)
         _raise(p)
+
+    @property
+    def dofs(self) -> tuple[str, ...]:
+        """The DOF(s) the point moves with."""
+        return (self.dof,) if isinstance(self.dof, str) else tuple(self.dof)
+
+    @property
+    def weights(self) -> tuple[float, ...]:
+        """Gains of :attr:`dofs` (1.0 for a single DOF)."""
+        return self.gains if self.gains is not None else (1.0,) * len(self.dofs)
 
     @property
     def sign(self) -> float:
@@ -419,32 +458,66 @@ class BuildVariant:
         _raise(p)
 
 
-def _check_ends(dofs: Any, file: str, fld: str, what: str, problems: list[Problem],
-                known: Mapping[str, "Dof"] | None = None) -> None:
-    """A spring's or joint's DOFs: 1 or 2 labels, known, different, along one axis."""
-    if not isinstance(dofs, (list, tuple)) or not 1 <= len(dofs) <= 2 \
-            or not all(isinstance(d, str) for d in dofs):
+def _default_gains(n: int) -> tuple[float, ...]:
+    return (1.0,) if n == 1 else (1.0, -1.0)
+
+
+def _check_ends(dofs: Any, gains: Any, file: str, pre: str, what: str, problems: list[Problem],
+                known: Mapping[str, "Dof"] | None = None) -> tuple[float, ...] | None:
+    """A spring's, joint's or point's DOFs and gains: labels, distinct, known, gains one per DOF
+    (finite, non-zero; needed beyond two DOFs), one axis for two DOFs without gains.  Returns the
+    gains as a tuple of floats (None when not given)."""
+    fld = pre + ".dofs"
+    if not isinstance(dofs, (list, tuple)) or not dofs or not all(isinstance(d, str) for d in dofs):
         problems.append(Problem(file, fld, dofs if not isinstance(dofs, tuple) else list(dofs),
-                                f"must be an array of one DOF label (a {what} to ground) or two "
-                                f"(a {what} between them)"))
-        return
+                                f"must be an array of one DOF label (a {what} to ground), two (a "
+                                f"{what} between them) or more with gains"))
+        return None
     if len(dofs) == 2 and dofs[0] == dofs[1]:
         problems.append(Problem(file, fld, list(dofs),
                                 f"a {what} from a DOF to itself does nothing: give two different "
                                 f"DOFs, or one DOF for a {what} to ground"))
-        return
+        return None
+    dup = sorted({d for d in dofs if list(dofs).count(d) > 1})
+    if dup:
+        problems.append(Problem(file, fld, list(dofs), f"each DOF once; repeated: {', '.join(dup)}"))
+        return None
+    out = None
+    if gains is None:
+        if len(dofs) > 2 and what != "point":
+            problems.append(Problem(file, pre + ".gains", None,
+                                    f"missing: a {what} on more than two DOFs needs gains = "
+                                    "[...], one per DOF (u = sum g_k x_k)"))
+        elif what == "point" and len(dofs) > 1:
+            problems.append(Problem(file, pre + ".gains", None,
+                                    "missing: a point on several DOFs needs gains = [...], one per "
+                                    "DOF (x = sum g_k x_k)"))
+    elif not isinstance(gains, (list, tuple)) or len(gains) != len(dofs):
+        problems.append(Problem(file, pre + ".gains", gains if not isinstance(gains, tuple)
+                                else list(gains),
+                                f"must be an array of {len(dofs)} numbers, one per DOF"))
+    else:
+        vals = []
+        for k, g in enumerate(gains, start=1):
+            v = _ranged(g, file, f"{pre}.gains[{k}]", "", "must be a finite number other than 0",
+                        lambda x: x != 0.0, problems)
+            vals.append(v)
+        if all(v is not None for v in vals):
+            out = tuple(vals)
     if known is None:
-        return
+        return out
     ok = True
     for k, d in enumerate(dofs, start=1):
         if d not in known:
             ok = False
             problems.append(Problem(file, f"{fld}[{k}]", d, "unknown DOF; allowed: the labels of "
                                     "[[dofs]]", did_you_mean(d, known)))
-    if ok and len(dofs) == 2 and known[dofs[0]].axis != known[dofs[1]].axis:
+    if ok and gains is None and len(dofs) == 2 and known[dofs[0]].axis != known[dofs[1]].axis:
         problems.append(Problem(file, fld, list(dofs),
                                 f"a {what} acts along one axis: {dofs[0]} moves along "
-                                f"{known[dofs[0]].axis!r}, {dofs[1]} along {known[dofs[1]].axis!r}"))
+                                f"{known[dofs[0]].axis!r}, {dofs[1]} along {known[dofs[1]].axis!r} "
+                                "(with a lever arm, give gains)"))
+    return out
 
 
 def _check_direction_form(direction: Any, file: str, fld: str, problems: list[Problem]) -> bool:
@@ -483,31 +556,30 @@ def _check_damping_forms(has_zeta: bool, has_rest: bool, has_rayleigh: bool, fil
                                 "beyond the list) or rayleigh_alpha and rayleigh_beta"))
 
 
-def _floating_groups(n: int, index: Mapping[str, int], ends: list[tuple[str, ...]]) -> list[list[int]]:
-    """Groups of DOFs (connected through springs and joints) with no spring or joint to ground."""
-    parent = list(range(n))
+def _floating_dofs(dofs, elements) -> list[str]:
+    """DOFs that move in a rigid-body mode (zero stiffness with every joint stuck), or [].
 
-    def find(a: int) -> int:
-        while parent[a] != a:
-            parent[a] = parent[parent[a]]
-            a = parent[a]
-        return a
-
-    grounded = set()
-    for e in ends:
-        if len(e) == 1:
-            grounded.add(index[e[0]])
-        else:
-            ra, rb = find(index[e[0]]), find(index[e[1]])
-            if ra != rb:
-                parent[ra] = rb
-    grounded_roots = {find(g) for g in grounded}
-    groups: dict[int, list[int]] = {}
-    for k in range(n):
-        r = find(k)
-        if r not in grounded_roots:
-            groups.setdefault(r, []).append(k)
-    return sorted(groups.values())
+    ``elements``: (dof labels, gains, stiffness) of every spring and joint (K_T).  The stuck
+    stiffness matrix is positive definite exactly when no motion costs zero energy; its
+    mass-weighted eigenvalues (:func:`numpy.linalg.eigh`) below 1e-11 of the largest mark such
+    motions, and the DOFs with a large share in them are named.
+    """
+    n = len(dofs)
+    index = {d.label: k for k, d in enumerate(dofs)}
+    K = np.zeros((n, n))
+    for ends, gains, k in elements:
+        b = np.zeros(n)
+        for d, g in zip(ends, gains):
+            b[index[d]] = g
+        K += k * np.outer(b, b)
+    w = 1.0 / np.sqrt([d.mass for d in dofs])
+    lam, vec = np.linalg.eigh(K * np.outer(w, w))
+    top = max(float(lam[-1]), 0.0)
+    null = vec[:, lam <= 1e-11 * top] if top > 0.0 else np.eye(n)
+    if null.shape[1] == 0:
+        return []
+    share = np.abs(null).max(axis=1)
+    return [dofs[k].label for k in range(n) if share[k] > 0.1 * share.max()]
 
 
 def _cross_checks(dofs, springs, joints, points, damping, mode_labels, template_count, base_dir,
@@ -529,25 +601,30 @@ def _cross_checks(dofs, springs, joints, points, damping, mode_labels, template_
                                         f"{what}[{seen[it.label]}]"))
             else:
                 seen[it.label] = k
-    ends: list[tuple[str, ...]] = []
+    elements = []
     for what, items in (("springs", springs), ("joints", joints)):
         for k, it in enumerate(items, start=1):
-            fld = fields.get((what, k), _item_prefix(what, k, getattr(it, "label", ""))) + ".dofs"
+            pre = fields.get((what, k), _item_prefix(what, k, getattr(it, "label", "")))
             n0 = len(problems)
-            _check_ends(it.dofs, file, fld, what[:-1], problems, known)
+            _check_ends(it.dofs, it.gains, file, pre, what[:-1], problems, known)
             if len(problems) == n0:
-                ends.append(it.dofs)
+                elements.append((it.dofs, it.weights, it.k if what == "springs" else it.Kt))
     nodes: dict[int, int] = {}
     for k, pt in enumerate(points, start=1):
         pre = fields.get(("points", k), _item_prefix("points", k, pt.label))
-        if pt.dof not in known:
-            problems.append(Problem(file, pre + ".dof", pt.dof,
-                                    "unknown DOF; allowed: the labels of [[dofs]]",
-                                    did_you_mean(pt.dof, known)))
-        elif pt.axis != known[pt.dof].axis:
+        n0 = len(problems)
+        if isinstance(pt.dof, str) and pt.gains is None:
+            if pt.dof not in known:
+                problems.append(Problem(file, pre + ".dof", pt.dof,
+                                        "unknown DOF; allowed: the labels of [[dofs]]",
+                                        did_you_mean(pt.dof, known)))
+        else:
+            _check_ends(pt.dofs, pt.gains, file, pre, "point", problems, known)
+        first = pt.dofs[0]
+        if len(problems) == n0 and pt.axis != known[first].axis:
             problems.append(Problem(file, pre + ".direction", pt.direction,
-                                    f"must be '+{known[pt.dof].axis}' or '-{known[pt.dof].axis}': "
-                                    f"DOF {pt.dof} moves along {known[pt.dof].axis!r}"))
+                                    f"must be '+{known[first].axis}' or '-{known[first].axis}': "
+                                    f"DOF {first} moves along {known[first].axis!r}"))
         if pt.test_node is not None:
             if pt.test_node in nodes:
                 problems.append(Problem(file, pre + ".test_node", pt.test_node,
@@ -558,14 +635,15 @@ def _cross_checks(dofs, springs, joints, points, damping, mode_labels, template_
     n = len(dofs)
     if n == 0:
         problems.append(Problem(file, "dofs", [], "at least one [[dofs]] entry is required"))
-    elif complete and len(ends) == len(springs) + len(joints):
-        for group in _floating_groups(n, index, ends):
-            names = [dofs[k].label for k in group]
+    elif complete and len(elements) == len(springs) + len(joints):
+        names = _floating_dofs(dofs, elements)
+        if names:
             shown = ", ".join(names[:6]) + (f" and {len(names) - 6} more" if len(names) > 6 else "")
             problems.append(Problem(
                 file, "springs/joints", shown,
-                "not connected to ground by any spring or joint: the structure is free to drift "
-                "(a rigid-body mode at 0 Hz); every DOF must reach ground through springs or joints",
+                "these DOFs can move without deforming any spring or joint: the structure is "
+                "free to drift (a rigid-body mode at 0 Hz with the joints stuck); every DOF must "
+                "be held to ground through springs or joints",
                 "add a spring or joint with one DOF (to ground), e.g. the mounting stiffness"))
     if damping is not None and not damping.is_rayleigh and n:
         if len(damping.zeta) > n:
@@ -719,36 +797,37 @@ class LumpedModel:
         """Lumped masses, shape (n_dofs,) [kg]."""
         return np.array([d.mass for d in self.dofs])
 
-    def _incidence(self, ends: tuple[str, ...]) -> np.ndarray:
+    def _incidence(self, ends: tuple[str, ...], gains: tuple[float, ...]) -> np.ndarray:
         b = np.zeros(self.n_dofs)
-        b[self.dof_index(ends[0])] = 1.0
-        if len(ends) == 2:
-            b[self.dof_index(ends[1])] = -1.0
+        for d, g in zip(ends, gains):
+            b[self.dof_index(d)] = g
         return b
 
     def joint_vectors(self) -> np.ndarray:
-        """Incidence of each joint, shape (n_joints, n_dofs): u_j = B[j] @ x (x_a - x_b or x_a)."""
-        return np.array([self._incidence(j.dofs) for j in self.joints]).reshape(self.n_joints,
-                                                                                self.n_dofs)
+        """Incidence of each joint, shape (n_joints, n_dofs): u_j = B[j] @ x (x_a - x_b, x_a, or
+        sum g_k x_k)."""
+        return np.array([self._incidence(j.dofs, j.weights) for j in self.joints]
+                        ).reshape(self.n_joints, self.n_dofs)
 
     def stiffness(self, joints_stuck: bool = True) -> np.ndarray:
         """Stiffness matrix, shape (n_dofs, n_dofs) [N/m]: springs, plus each joint's Kt when stuck."""
         n = self.n_dofs
         K = np.zeros((n, n))
         for s in self.springs:
-            b = self._incidence(s.dofs)
+            b = self._incidence(s.dofs, s.weights)
             K += s.k * np.outer(b, b)
         if joints_stuck:
             for j in self.joints:
-                b = self._incidence(j.dofs)
+                b = self._incidence(j.dofs, j.weights)
                 K += j.Kt * np.outer(b, b)
         return K
 
     def point_vectors(self, points) -> np.ndarray:
-        """Sign-weighted selection of each point's DOF, shape (len(points), n_dofs)."""
+        """Each point's motion in terms of the DOFs, shape (len(points), n_dofs): the point's sign
+        times its gains (1 for a single DOF)."""
         S = np.zeros((len(points), self.n_dofs))
         for r, pt in enumerate(points):
-            S[r, self.dof_index(pt.dof)] = pt.sign
+            S[r] = pt.sign * self._incidence(pt.dofs, pt.weights)
         return S
 
     def base_vector(self) -> np.ndarray:
@@ -902,13 +981,14 @@ def parse_lumped(data: Mapping[str, Any], source: str = "<dict>", sha256: str = 
         if lab != "":
             lab = _label(lab, f, pre + ".label", p) or ""
         ends = _required(t, "dofs", f, pre + ".dofs", "one DOF label (to ground) or two", p)
+        gains = None
         if ends is not None:
-            _check_ends(ends, f, pre + ".dofs", "spring", p)
+            gains = _check_ends(ends, t.get("gains"), f, pre, "spring", p)
         kk = _required(t, "k", f, pre + ".k", "stiffness in N/m, > 0", p)
         if kk is not None:
             kk = _ranged(kk, f, pre + ".k", " in N/m", "must satisfy k > 0 N/m", lambda v: v > 0.0, p)
         if len(p) == n0:
-            springs.append(Spring(tuple(ends), kk, lab))
+            springs.append(Spring(tuple(ends), kk, lab, gains))
 
     joints: list[Joint] = []
     for k, t in enumerate(_array_of_tables(data, "joints", f, p, required=False), start=1):
@@ -919,11 +999,13 @@ def parse_lumped(data: Mapping[str, Any], source: str = "<dict>", sha256: str = 
         lab = _required(t, "label", f, pre + ".label", "a label", p)
         lab = _label(lab, f, pre + ".label", p) if lab is not None else None
         ends = _required(t, "dofs", f, pre + ".dofs", "one DOF label (to ground) or two", p)
+        gains = None
         if ends is not None:
-            _check_ends(ends, f, pre + ".dofs", "joint", p)
+            gains = _check_ends(ends, t.get("gains"), f, pre, "joint", p)
         vals = _parse_joint_values(t, ("Fs", "Kt", "chi", "beta"), pre + ".", f, p, required=True)
         if len(p) == n0:
-            joints.append(Joint(lab, tuple(ends), vals["Fs"], vals["Kt"], vals["chi"], vals["beta"]))
+            joints.append(Joint(lab, tuple(ends), vals["Fs"], vals["Kt"], vals["chi"], vals["beta"],
+                                gains))
 
     damping = None
     dt = _table(data, "damping", f, p, required=True)
@@ -992,8 +1074,21 @@ def parse_lumped(data: Mapping[str, Any], source: str = "<dict>", sha256: str = 
         _keys(t, _POINT_KEYS, "[[points]]", pre + ".", f, p)
         lab = _required(t, "label", f, pre + ".label", "a label", p)
         lab = _label(lab, f, pre + ".label", p) if lab is not None else None
-        dof = _required(t, "dof", f, pre + ".dof", "the label of a DOF", p)
-        dof = _label(dof, f, pre + ".dof", p) if dof is not None else None
+        gains = None
+        if "dofs" in t and "dof" not in t:
+            dof = t["dofs"]
+            gains = _check_ends(dof, t.get("gains"), f, pre, "point", p)
+            dof = tuple(dof) if isinstance(dof, list) else dof
+        elif "dofs" in t:
+            p.append(Problem(f, pre + ".dofs", t["dofs"], "give either dof (one DOF) or dofs with "
+                             "gains (a point on several DOFs), not both"))
+            dof = None
+        else:
+            dof = _required(t, "dof", f, pre + ".dof", "the label of a DOF", p)
+            dof = _label(dof, f, pre + ".dof", p) if dof is not None else None
+            if "gains" in t:
+                p.append(Problem(f, pre + ".gains", t["gains"], "only with dofs = [...] (a point on "
+                                 "several DOFs)"))
         direction = _required(t, "direction", f, pre + ".direction", "'+<axis>' or '-<axis>'", p)
         if direction is not None:
             _check_direction_form(direction, f, pre + ".direction", p)
@@ -1003,7 +1098,7 @@ def parse_lumped(data: Mapping[str, Any], source: str = "<dict>", sha256: str = 
         node = t.get("test_node")
         _check_test_node(node, f, pre + ".test_node", p)
         if len(p) == n0:
-            points.append(LumpedPoint(lab, dof, direction, role, node))
+            points.append(LumpedPoint(lab, dof, direction, role, node, gains))
 
     builds: list[BuildVariant] = []
     for k, t in enumerate(_array_of_tables(data, "builds", f, p, required=False), start=1):

@@ -181,15 +181,12 @@ def modal_iwan_template(model: LumpedModel, count: int | None = None,
             notes.append(f"mode {i + 1}: {note}")
         out_modes.append(Mode(modes.labels[i], float(modes.frequency[i]), float(modes.zeta[i]),
                               joint, float(modes.base_participation[i]) if has_base else 0.0))
-    points = []
-    for pt in model.points:
-        k = model.dof_index(pt.dof)
-        kw = {}
-        if pt.test_node is not None and "test_node" in Point.__dataclass_fields__:
-            kw["test_node"] = pt.test_node
-        points.append(Point(pt.label, pt.role, pt.direction,
-                            tuple(float(pt.sign * modes.shapes[k, i]) for i in range(count)),
-                            float(pt.sign * r[k]) if has_base else 1.0, **kw))
+    Sp = model.point_vectors(model.points)
+    shapes = Sp @ modes.shapes[:, :count]
+    rp = Sp @ r
+    points = [Point(pt.label, pt.role, pt.direction, tuple(float(x) for x in shapes[k]),
+                    float(rp[k]) if has_base else 1.0, test_node=pt.test_node)
+              for k, pt in enumerate(model.points)]
     base = None
     if has_base:
         base = Base(float(np.dot(model.masses(), r)), model.base_direction)

@@ -88,6 +88,9 @@ class VirtualTest:
         Range of the response channels (in their unit), or None.
     oversample : int
         Simulation rate / record rate (raised automatically above the structure's band).
+    digits : int or None
+        Significant digits the recorded values are rounded to (as written; None: full
+        precision).  7 digits resolve 1e-7 of a value, far below any noise a test has.
     steps_per_period : float
         Of the simulator (sub-steps per period of the highest stuck-joint mode).
     """
@@ -105,6 +108,7 @@ class VirtualTest:
     clip: float | None = None
     oversample: int = 8
     steps_per_period: float = DEFAULT_STEPS_PER_PERIOD
+    digits: int | None = 7
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "levels", tuple(float(x) for x in self.levels))
@@ -133,6 +137,8 @@ class VirtualTest:
              "must be a finite range > 0 in the unit of the quantity")
         need(isinstance(self.oversample, int) and self.oversample >= 2, "oversample", self.oversample,
              "must be an integer >= 2")
+        need(self.digits is None or (isinstance(self.digits, int) and 3 <= self.digits <= 17),
+             "digits", self.digits, "must be an integer from 3 to 17, or None")
 
 
 @dataclass(frozen=True, eq=False)
@@ -141,6 +147,8 @@ class LevelResult:
 
     Attributes
     ----------
+    index : int
+        Position of the level in the campaign (0-based; names its file, seeds its noise).
     level : float
         Peak force [N].
     time : ndarray, shape (n,)
@@ -165,6 +173,7 @@ class LevelResult:
         Work of the impact [J].
     """
 
+    index: int
     level: float
     time: np.ndarray
     channels: dict
@@ -281,8 +290,11 @@ def simulate_impact(model: LumpedModel, impact: str, force: float, pulse: float,
 
 
 def run_virtual_test(model: LumpedModel, settings: VirtualTest,
-                     modes: StuckModes | None = None) -> list[LevelResult]:
+                     modes: StuckModes | None = None, only=None) -> list[LevelResult]:
     """Simulate and record every level of a campaign (see the module docstring).
+
+    ``only``: indices of the levels to run (default all); each record is the same as in the
+    full campaign.
 
     Raises
     ------
@@ -322,7 +334,11 @@ def run_virtual_test(model: LumpedModel, settings: VirtualTest,
     time = np.arange(n_rec) / settings.rate
     q = settings.quantity
     results = []
-    for li, F in enumerate(settings.levels):
+    chosen = range(len(settings.levels)) if only is None else sorted(set(int(k) for k in only))
+    for li in chosen:
+        if not 0 <= li < len(settings.levels):
+            raise InputError(f"virtual test level index {li}: allowed 0..{len(settings.levels) - 1}")
+        F = settings.levels[li]
         y = np.zeros((n_os, len(sensors)))
         force = np.zeros(n_os)
         y[k_imp:], force[k_imp:], sim = simulate_impact(
@@ -340,10 +356,13 @@ def run_virtual_test(model: LumpedModel, settings: VirtualTest,
             d = c + sd * noise
             if settings.clip is not None and not name.endswith(".force"):
                 d = np.clip(d, -settings.clip, settings.clip)
+            if settings.digits is not None:
+                fmt = f".{settings.digits}g"
+                d = np.array([float(format(x, fmt)) for x in d.tolist()])
             noisy[name] = d
             sig[name] = sd
         results.append(LevelResult(
-            level=F, time=time, channels=noisy, clean=clean, noise_rms=sig,
+            index=li, level=F, time=time, channels=noisy, clean=clean, noise_rms=sig,
             peak_modal=sim.peak_modal_amplitude, phimax=phimax,
             joint_peak_ratio=sim.joint_peak_ratio, joint_macroslip=sim.joint_reached_macroslip,
             energy_residual=sim.energy_residual, energy_input=sim.energy_input))
@@ -391,7 +410,7 @@ def write_campaign(model: LumpedModel, settings: VirtualTest, results: list[Leve
     template = modal_iwan_template(model)
     written: list[Path] = []
     summary_levels = []
-    for k, r in enumerate(results):
+    for r in results:
         comments = (
             "VIRTUAL ring-down test: simulated by jointfmu on a discrete-joint model; invented "
             "data, not a measurement",
@@ -404,13 +423,14 @@ def write_campaign(model: LumpedModel, settings: VirtualTest, results: list[Leve
             f"{settings.quantity}, {settings.rate:g} Hz after a linear-phase FIR anti-alias filter "
             f"(pass to {AA_PASS * settings.rate:g} Hz)",
             f"noise: white, SNR {settings.snr_db:g} dB per channel (RMS after the impact), seed "
-            f"{settings.seed}" + (f"; clipped at +-{settings.clip:g}" if settings.clip else ""),
+            f"{settings.seed}" + (f"; clipped at +-{settings.clip:g}" if settings.clip else "")
+            + (f"; values to {settings.digits} significant digits" if settings.digits else ""),
             f"jointfmu {version}".strip() + "; a fitted model is no substitute for qualification "
             "testing",
         )
         channels = tuple(Channel(name=n, data=d) for n, d in r.channels.items())
         rec = Record(time=r.time, channels=channels, comments=comments, source="jointfmu virtual-test")
-        stem = _level_name(k, r.level)
+        stem = _level_name(r.index, r.level)
         files = []
         if "csv" in formats:
             written.append(write_csv(rec, out / f"{stem}.csv"))
