@@ -2,10 +2,10 @@
 the sensor chain, the records read back through jointfmu.records (CSV and UFF 58), the command
 lines; the shipped example model and records (regenerated bit for bit)."""
 import copy
-import importlib.util
 import json
 import math
 import re
+import types
 from pathlib import Path
 
 import numpy as np
@@ -320,6 +320,13 @@ def test_cli_virtual_test_errors_are_one_line(rig_file, tmp_path, capsys, args, 
     assert not (tmp_path / "x").exists()
 
 
+def test_cli_check_takes_lumped_files(rig_file, capsys):
+    assert main(["check", str(rig_file), str(EXAMPLES / "tray_nominal.toml")]) == 0
+    out = capsys.readouterr().out
+    assert "rig@R1, discrete-joint structure: 3 DOFs, 2 joints, 3 points" in out
+    assert "avionics_tray@SN-0002, 4 modes" in out
+
+
 def test_cli_bad_file_lists_problems_without_traceback(tmp_path, capsys):
     f = tmp_path / "bad.toml"
     f.write_text('format = "jointfmu-lumped/1"\n[structure]\nname = "r"\nbuild = "b"\n'
@@ -330,6 +337,8 @@ def test_cli_bad_file_lists_problems_without_traceback(tmp_path, capsys):
     assert "Traceback" not in err
     assert main(["modes", str(tmp_path / "missing.toml")]) == 1
     assert "cannot be read" in capsys.readouterr().err
+    assert main(["check", str(f)]) == 1
+    assert "FAIL" in capsys.readouterr().out
 
 
 # ----------------------------------------------------------------------------- the shipped example
@@ -351,9 +360,12 @@ def test_example_model_modes_near_the_parameter_files(build):
 
 
 def _make_records():
-    spec = importlib.util.spec_from_file_location("make_records", EXAMPLES / "make_records.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
+    """The example script as a module, executed from its text (no __pycache__ is left in the
+    package's examples folder, which ships as package data)."""
+    path = EXAMPLES / "make_records.py"
+    mod = types.ModuleType("make_records")
+    mod.__file__ = str(path)
+    exec(compile(path.read_text(encoding="utf-8"), str(path), "exec"), mod.__dict__)
     return mod
 
 

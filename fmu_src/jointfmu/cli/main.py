@@ -20,20 +20,31 @@ __all__ = ["main", "run"]
 
 # --- check -------------------------------------------------------------------------------------
 def _args_check(p: argparse.ArgumentParser) -> None:
-    p.add_argument("files", nargs="+", metavar="FILE", help="parameter file(s) (jointfmu-params/1 TOML)")
+    p.add_argument("files", nargs="+", metavar="FILE",
+                   help="parameter file(s) (jointfmu-params/1 TOML) or discrete-joint structures "
+                        "(jointfmu-lumped/1)")
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    """Check parameter files; exit 1 if any is invalid."""
+    """Check parameter files (and discrete-joint structure files); exit 1 if any is invalid."""
+    from ..lumped.model import check_lumped_file, is_lumped_file, load_lumped
+
     bad = 0
     for path in args.files:
-        problems = check_parameter_file(path)
+        lumped = is_lumped_file(path)
+        problems = check_lumped_file(path) if lumped else check_parameter_file(path)
         if problems:
             bad += 1
             n = len(problems)
             print(f"FAIL {path}: {n} problem{'s' if n != 1 else ''}")
             for prob in problems:
                 print(f"  {prob}")
+            continue
+        if lumped:
+            m = load_lumped(path)
+            print(f"OK  {path}: {m.set_id}, discrete-joint structure: {m.n_dofs} DOFs, "
+                  f"{m.n_joints} joints, {len(m.points)} points, builds "
+                  f"{', '.join(m.build_labels)}")
             continue
         ps = load_parameter_set(path)
         print(f"OK  {path}: {ps.set_id}, {ps.n_modes} modes, {len(ps.points)} points, "

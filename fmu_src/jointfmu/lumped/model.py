@@ -63,6 +63,7 @@ __all__ = [
     "parse_lumped",
     "load_lumped",
     "check_lumped_file",
+    "is_lumped_file",
 ]
 
 #: The one format this version reads.
@@ -1202,3 +1203,13 @@ def check_lumped_file(path) -> list[Problem]:
     except ParameterError as e:
         return list(e.problems)
     return []
+
+
+def is_lumped_file(path) -> bool:
+    """True when ``path`` is a TOML file whose ``format`` is ``jointfmu-lumped/1`` (a quick look
+    for commands that take either kind of file; False when it cannot be read)."""
+    try:
+        data = _toml.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, _toml.TOMLDecodeError):
+        return False
+    return isinstance(data, dict) and data.get("format") == FORMAT
