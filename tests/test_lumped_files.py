@@ -311,9 +311,12 @@ def test_cli_virtual_test_writes_records(rig_file, tmp_path, capsys):
     (["--impact", "hit", "--levels", "10,x"], "--levels '10,x': expected numbers"),
     (["--impact", "s1", "--levels", "10"], "the impact needs a point with role 'input' or 'both'"),
     (["--impact", "hit", "--levels", "10", "--rate", "-5"], "rate = -5.0: must be > 0 Hz"),
+    (["--impact", "hit", "--levels", "10", "-o", "/proc/version/x"], "--output"),
 ])
 def test_cli_virtual_test_errors_are_one_line(rig_file, tmp_path, capsys, args, text):
-    code = main(["virtual-test", str(rig_file), *args, "-o", str(tmp_path / "x")])
+    if "-o" not in args:
+        args = [*args, "-o", str(tmp_path / "x")]
+    code = main(["virtual-test", str(rig_file), *args])
     err = capsys.readouterr().err
     assert code == 1 and err.startswith("jointfmu: error:") and text in err
     assert "Traceback" not in err and len(err.strip().splitlines()) <= 2

@@ -351,9 +351,12 @@ def _args_modes(p: argparse.ArgumentParser) -> None:
 
 def _cmd_modes(args: argparse.Namespace) -> int:
     """Print the stuck-joint modes; write the modal-Iwan template."""
+    from ..fileio import check_output_path
     from ..lumped.model import load_lumped
     from ..lumped.modes import format_modes, stuck_modes, write_template
 
+    if args.output:
+        check_output_path(args.output, "file", "--output")
     model = load_lumped(args.lumped, args.build)
     modes = stuck_modes(model)
     print(format_modes(model, modes))
@@ -409,8 +412,10 @@ def _cmd_virtual_test(args: argparse.Namespace) -> int:
     """Virtual hammer tests of a discrete-joint structure, written as ring-down records."""
     from ..lumped.model import load_lumped
     from ..lumped.modes import stuck_modes
+    from ..fileio import check_output_path
     from ..lumped.virtual_test import VirtualTest, format_levels, run_virtual_test, write_campaign
 
+    check_output_path(args.output, "into", "--output")
     model = load_lumped(args.lumped, args.build)
     sensors = tuple(s.strip() for s in args.sensors.split(",") if s.strip()) if args.sensors else ()
     settings = VirtualTest(impact=args.impact, levels=_number_list(args.levels, "--levels"),

@@ -204,16 +204,22 @@ def lumped_substep(coef, md, C, P, fw, st, jc, js, stk, bk, wm, wj, en, peak, js
                     + coef[i, 6] * wm[i, 1] + coef[i, 8] * wm[i, 2])
         wm[i, 5] = (coef[i, 2] * q0 + coef[i, 3] * v0 + coef[i, 5] * wm[i, 0]
                     + coef[i, 7] * wm[i, 1] + coef[i, 9] * wm[i, 2])
+    # each joint at the end of the step (kept in wj[:, 6:8] unless a correction changes it)
+    for j in range(nj):
+        u1 = 0.0
+        ud1 = 0.0
+        for i in range(n):
+            u1 += C[j, i] * wm[i, 4]
+            ud1 += C[j, i] * wm[i, 5]
+        wj[j, 6] = u1
+        wj[j, 7] = ud1
     # onset of macro-slip inside the step (beta > 0): the slope of g_j drops by S v*
     corrected = False
     for j in range(nj):
         if jc[j, SPOINT] > 0.0:
             ud0 = wj[j, 1]
-            u1 = 0.0
-            ud1 = 0.0
-            for i in range(n):
-                u1 += C[j, i] * wm[i, 4]
-                ud1 += C[j, i] * wm[i, 5]
+            u1 = wj[j, 6]
+            ud1 = wj[j, 7]
             if ud0 * ud1 > 0.0:
                 u0 = wj[j, 0]
                 if ud0 > 0.0:
@@ -233,6 +239,14 @@ def lumped_substep(coef, md, C, P, fw, st, jc, js, stk, bk, wm, wj, en, peak, js
         for i in range(n):
             wm[i, 4] += wm[i, 6]
             wm[i, 5] += wm[i, 7]
+        for j in range(nj):
+            u1 = 0.0
+            ud1 = 0.0
+            for i in range(n):
+                u1 += C[j, i] * wm[i, 4]
+                ud1 += C[j, i] * wm[i, 5]
+            wj[j, 6] = u1
+            wj[j, 7] = ud1
     # energy sums: Simpson's rule with the Hermite mid-step velocity of each mode
     ev = 0.0
     for i in range(n):
@@ -266,11 +280,8 @@ def lumped_substep(coef, md, C, P, fw, st, jc, js, stk, bk, wm, wj, en, peak, js
         wm[i, 7] = 0.0
     corrected = False
     for j in range(nj):
-        u1 = 0.0
-        ud1 = 0.0
-        for i in range(n):
-            u1 += C[j, i] * wm[i, 4]
-            ud1 += C[j, i] * wm[i, 5]
+        u1 = wj[j, 6]
+        ud1 = wj[j, 7]
         u0 = wj[j, 0]
         ud0 = wj[j, 1]
         if ud0 * ud1 < 0.0:
