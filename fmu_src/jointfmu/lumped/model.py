@@ -111,6 +111,8 @@ def _type_name(x: Any) -> str:
         return "a table"
     if isinstance(x, (datetime, date, time)):
         return "a date/time"
+    if isinstance(x, numbers.Real):
+        return "a number"
     return f"a {type(x).__name__}"
 
 
@@ -973,7 +975,8 @@ def parse_lumped(data: Mapping[str, Any], source: str = "<dict>", sha256: str = 
 
     fields: dict[tuple[str, int], str] = {}
     springs: list[Spring] = []
-    for k, t in enumerate(_array_of_tables(data, "springs", f, p, required=False), start=1):
+    raw_springs = _array_of_tables(data, "springs", f, p, required=False)
+    for k, t in enumerate(raw_springs, start=1):
         pre = _item_prefix("springs", k, t.get("label"))
         fields[("springs", len(springs) + 1)] = pre
         n0 = len(p)
@@ -992,7 +995,8 @@ def parse_lumped(data: Mapping[str, Any], source: str = "<dict>", sha256: str = 
             springs.append(Spring(tuple(ends), kk, lab, gains))
 
     joints: list[Joint] = []
-    for k, t in enumerate(_array_of_tables(data, "joints", f, p, required=False), start=1):
+    raw_joints = _array_of_tables(data, "joints", f, p, required=False)
+    for k, t in enumerate(raw_joints, start=1):
         pre = _item_prefix("joints", k, t.get("label"))
         fields[("joints", len(joints) + 1)] = pre
         n0 = len(p)
@@ -1136,8 +1140,9 @@ def parse_lumped(data: Mapping[str, Any], source: str = "<dict>", sha256: str = 
             builds.append(BuildVariant(lab, bid, desc, zf, facs["Fs"], facs["Kt"], vals["chi"],
                                        vals["beta"]))
 
-    complete = (len(springs) == len(data.get("springs", [])) and
-                len(joints) == len(data.get("joints", [])))
+    complete = (len(springs) == len(raw_springs) and len(joints) == len(raw_joints)
+                and isinstance(data.get("springs", []), list)
+                and isinstance(data.get("joints", []), list))
     _cross_checks(dofs, springs, joints, points, damping, mode_labels, count, base_dir,
                   build_label, build, builds, f, p, fields, complete)
     _raise(p)
