@@ -50,6 +50,8 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
 
 from ..errors import ParameterError, Problem, did_you_mean
 from ..params import ROLES, JointParams
+from ..params.names import LABEL_PATTERN
+from ..params.rules import RULES_BY_NAME
 
 __all__ = [
     "FORMAT",
@@ -70,7 +72,7 @@ __all__ = [
 FORMAT = "jointfmu-lumped/1"
 
 _PY = "<python>"
-_LABEL_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_LABEL_RE = re.compile(rf"^{LABEL_PATTERN}$")   # labels become record channel names
 _LABEL_RULE = "must match ^[A-Za-z][A-Za-z0-9_]*$ (a letter, then letters, digits or '_')"
 
 _TOP_KEYS = ("format", "structure", "base", "dofs", "springs", "joints", "damping", "modes",
@@ -87,14 +89,24 @@ _BUILD_KEYS = ("label", "build", "description", "zeta_factor", "joint_factors", 
 _FACTOR_KEYS = ("Fs", "Kt")
 _VALUE_KEYS = ("chi", "beta")
 
-# the joint ranges, worded as the parameter files word them (Segalman 2005; physics sheet sec. 1)
-_JOINT_RULES = {
-    "Fs": ("must satisfy Fs > 0 N", lambda v: v > 0.0),
-    "Kt": ("must satisfy Kt > 0 N/m", lambda v: v > 0.0),
-    "chi": ("must satisfy -1 < chi <= 0", lambda v: -1.0 < v <= 0.0),
-    "beta": ("must satisfy beta >= 0", lambda v: v >= 0.0),
-}
-_JOINT_UNITS = {"Fs": " in N", "Kt": " in N/m", "chi": "", "beta": ""}
+# Physical units of a discrete joint's values (a mode's joint is in modal units: params.rules)
+_JOINT_UNITS = {"Fs": "N", "Kt": "N/m", "chi": "", "beta": ""}
+
+
+def _joint_value(name: str, x: Any, file: str, fld: str, problems: list[Problem]) -> float | None:
+    """A discrete joint's value checked by the rules of the parameter files (the one table of
+    the ranges, :data:`jointfmu.params.rules.RULES_BY_NAME`: Segalman 2005), in physical units."""
+    unit = _JOINT_UNITS[name]
+    v = _number(x, file, fld, f" in {unit}" if unit else "", problems)
+    if v is None:
+        return None
+    bad = RULES_BY_NAME[name].violation(v)
+    if bad is not None:
+        allowed, hint = bad
+        allowed = allowed.replace("N/sqrt(kg)", unit).replace("1/s^2", unit)
+        problems.append(Problem(file, fld, x, allowed, hint))
+        return None
+    return v
 
 
 # ---------------------------------------------------------------------------------------------
@@ -456,8 +468,7 @@ class BuildVariant:
         for name in ("chi", "beta"):
             v = getattr(self, name)
             if v is not None:
-                rule, ok = _JOINT_RULES[name]
-                _ranged(v, _PY, f"{pre}.{name}", "", rule, ok, p)
+                _joint_value(name, v, _PY, f"{pre}.{name}", p)
         _raise(p)
 
 
@@ -902,16 +913,13 @@ def _parse_joint_values(t: Mapping[str, Any], names, pre: str, f: str, problems:
     for name in names:
         if name not in t:
             if required:
+                rule = RULES_BY_NAME[name]
+                unit = f" in {_JOINT_UNITS[name]}" if _JOINT_UNITS[name] else ""
                 problems.append(Problem(f, pre + name, None, f"missing required key {name!r} "
-                                        f"({_JOINT_RULES[name][0][12:]})"))
+                                        f"({rule.meaning}{unit}, {rule.rule(upper_known=False)})"))
             out[name] = None
             continue
-        rule, ok = _JOINT_RULES[name]
-        hint = ""
-        if name == "chi":
-            hint = "chi <= -1 makes Kt and Fs infinite (Segalman 2005)"
-        out[name] = _ranged(t[name], f, pre + name, _JOINT_UNITS[name], rule, ok, problems,
-                            hint if isinstance(t[name], (int, float)) and t[name] <= -1 else "")
+        out[name] = _joint_value(name, t[name], f, pre + name, problems)
     return out
 
 

@@ -39,6 +39,7 @@ import scipy.signal
 
 from ..errors import InputError, SimulationError
 from ..fileio import atomic_write
+from ..params.names import point_name
 from ..physics.iwan import joint_constants
 from .model import LumpedModel
 from .modes import StuckModes, modal_iwan_template, stuck_modes
@@ -344,7 +345,7 @@ def run_virtual_test(model: LumpedModel, settings: VirtualTest,
         y[k_imp:], force[k_imp:], sim = simulate_impact(
             model, settings.impact, F, settings.pulse, 1.0 / (settings.rate * ov), n_os - k_imp,
             sensors, q, settings.steps_per_period, modes)
-        names = [f"point.{s}.{q}" for s in sensors] + [f"point.{settings.impact}.force"]
+        names = [point_name(s, q) for s in sensors] + [point_name(settings.impact, "force")]
         clean, noisy, sig = {}, {}, {}
         for ci, (name, x) in enumerate(zip(names, list(y.T) + [force])):
             c = scipy.signal.upfirdn(taps, x, 1, ov)[D:D + n_rec]
