@@ -51,6 +51,9 @@ COMMANDS = {
     "sweep": ["sweep", str(NOMINAL), "--loop", "--quick", "--no-progress", "--out", "OUT/sw"],
     "build": ["build", str(NOMINAL), "-o", "OUT/new/b.fmu"],
     "demo": ["demo", "--quick", "--no-progress", "--out", "OUT/d"],
+    "modes": ["modes", str(EXAMPLES / "tray_lumped.toml"), "-o", "OUT/t.toml"],
+    "virtual-test": ["virtual-test", str(EXAMPLES / "tray_lumped.toml"), "--impact", "shaker",
+                     "--levels", "10", "--duration", "0.2", "-o", "OUT/vt"],
 }
 
 

@@ -86,8 +86,8 @@ def test_wheel_carries_what_the_commands_need(installed):
     wheel = installed[0]
     with zipfile.ZipFile(wheel) as z:
         names = set(z.namelist())
-    need = {f"jointfmu/examples/{p.name}" for p in (PACKAGE / "examples").rglob("*")
-            if p.is_file()}
+    need = {f"jointfmu/examples/{p.relative_to(PACKAGE / 'examples').as_posix()}"
+            for p in (PACKAGE / "examples").rglob("*") if p.is_file()}   # subfolders too (records/)
     need |= {f"jointfmu/report/templates/{p.name}"
              for p in (PACKAGE / "report" / "templates").glob("*.html")}
     need |= {"jointfmu/fmu/native/fmi2_shell.c"}
