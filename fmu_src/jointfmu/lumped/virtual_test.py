@@ -221,8 +221,9 @@ def simulate_impact(model: LumpedModel, impact: str, force: float, pulse: float,
     """The response to a half-sine force pulse starting at t = 0, sampled every ``dt``.
 
     The pulse F sin(pi t / T) for 0 <= t <= T is fed to the simulator in pieces of at most one
-    sub-step and at most T / ``PULSE_PIECES``, each with the pulse's exact value, rate and second derivative at its start, and
-    ending on every sample time and at T; afterwards the structure rings down freely.
+    sub-step and at most T / ``PULSE_PIECES``, each with the pulse's exact value, rate and second
+    derivative at its start, and ending on every sample time and at T; afterwards the structure
+    rings down freely.
 
     Parameters
     ----------
@@ -261,8 +262,7 @@ def simulate_impact(model: LumpedModel, impact: str, force: float, pulse: float,
         sim.set_inputs(*fp)
 
     def sense():
-        v = {"x": sim.x, "v": sim.v, "a": sim.a}[quantity]
-        return S @ v
+        return S @ getattr(sim, quantity)   # sim.x, sim.v or sim.a of every DOF
 
     m_last = int(math.floor(T / dt)) + 1          # the first sample after the pulse
     stops = sorted({m * dt for m in range(1, m_last + 1)} | {T})
