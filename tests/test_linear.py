@@ -113,9 +113,9 @@ def test_zero_amplitude_is_the_low_amplitude_model():
 
 
 #: 2e-4 m at 'tip' by hand: each mode alone moves the point by |phi_tip,i| A_i, so
-#: A_i = 2e-4 / |phi_tip,i| with the tip shape (0.62, 0.85, -0.45, 0.95) 1/sqrt(kg) that
-#: examples/tray_nominal.toml gives (derived here): 3.2258e-4, 2.3529e-4, 4.4444e-4, 2.1053e-4.
-TIP_X_2E4 = [2e-4 / 0.62, 2e-4 / 0.85, 2e-4 / 0.45, 2e-4 / 0.95]
+#: A_i = 2e-4 / |phi_tip,i| with the tip shape (0.3787, 0.6751, -0.8807, 1.522) 1/sqrt(kg) that
+#: examples/tray_nominal.toml gives (derived here): 5.28122e-4, 2.96252e-4, 2.27092e-4, 1.31406e-4.
+TIP_X_2E4 = [2e-4 / 0.3787, 2e-4 / 0.6751, 2e-4 / 0.8807, 2e-4 / 1.522]
 
 
 def test_modal_amplitudes_at_point_displacement_by_hand():
@@ -123,7 +123,7 @@ def test_modal_amplitudes_at_point_displacement_by_hand():
     from the mode shape (the sign of the shape does not matter)."""
     A = L.modal_amplitudes_at_point(NOMINAL, "tip", 2e-4, "x")
     np.testing.assert_allclose(A, TIP_X_2E4, rtol=1e-14)
-    np.testing.assert_allclose(A, [3.2258e-4, 2.3529e-4, 4.4444e-4, 2.1053e-4], rtol=2e-5)
+    np.testing.assert_allclose(A, [5.28122e-4, 2.96252e-4, 2.27092e-4, 1.31406e-4], rtol=2e-5)
 
 
 @pytest.mark.parametrize("quantity, value", [("v", 0.05), ("a", 150.0)])

