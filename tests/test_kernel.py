@@ -129,8 +129,8 @@ def test_bound_entry_equals_numba_dispatch():
 
     bound = ModalSimulator(three_modes(), kernel="compiled", merge_tol=1e-5, stack_capacity=8)
     plain = ModalSimulator(three_modes(), kernel="compiled", merge_tol=1e-5, stack_capacity=8)
-    assert bound._step_all is not _compiled.step_all            # bound at construction
-    plain._step_all, plain._refresh = _compiled.step_all, _compiled.refresh
+    assert bound._step is not _compiled.step_planned            # bound at construction
+    plain._step, plain._refresh = _compiled.step_planned, _compiled.refresh
     for x in force_history(450, 1e-3):
         for s in (bound, plain):
             s.set_inputs(point_forces=[x])
@@ -153,8 +153,8 @@ _PROBE = (
     "if info['kernel'] == 'numba':\n"
     "    from jointfmu.physics import compiled as C\n"
     "    info['file'] = str(C.CACHE_FILE)\n"
-    "    info['hits'] = sum(len(d.stats.cache_hits) for d in (C.step_all, C.refresh))\n"
-    "    info['misses'] = sum(len(d.stats.cache_misses) for d in (C.step_all, C.refresh))\n"
+    "    info['hits'] = sum(len(d.stats.cache_hits) for d in (C.step_planned, C.refresh))\n"
+    "    info['misses'] = sum(len(d.stats.cache_misses) for d in (C.step_planned, C.refresh))\n"
     "print(json.dumps(info))\n"
 )
 

@@ -49,8 +49,9 @@ import numpy as np
 
 from . import kernel as _K
 
-__all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "step_all", "refresh", "CACHE_FILE",
-           "cache_dir_candidates", "bind", "compile_source", "jit_footer"]
+__all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "step_all", "step_planned", "undo",
+           "refresh", "CACHE_FILE", "cache_dir_candidates", "bind", "compile_source", "jit_footer",
+           "c_step_entry"]
 
 NAME = "numba"
 
@@ -60,8 +61,38 @@ NAME = "numba"
 #: ``forceinline``: LLVM inlines the helpers into their callers (39 -> 33 ns; same compile time).
 _JIT_OPTIONS = "cache=True, nogil=True, error_model='numpy', _nrt=False, forceinline=True"
 #: The same without ``forceinline``, for the functions ``_kernel.COLD`` names: rarely taken
-#: branches called as functions keep the hot loop small (32-33 instead of 34-48 ns measured).
+#: branches called as functions keep the hot loop small (32-33 instead of 34-48 ns measured);
+#: and for ``_kernel.ENTRIES``, so that the C entry calls the machine code Python calls.
 _JIT_OPTIONS_COLD = _JIT_OPTIONS.replace("forceinline=True", "forceinline=False")
+
+#: The array arguments of ``_kernel.step_planned`` after ``dt`` and ``has_base``, in order, as
+#: (number of dimensions, dtype): the C entry rebuilds them from pointers and shapes.
+C_STEP_ARRAYS = ((1, "float64"), (2, "int64"), (3, "float64"), (1, "float64"), (1, "float64"),
+                 (2, "float64"), (2, "float64"), (2, "float64"), (2, "float64"), (3, "float64"),
+                 (3, "float64"), (1, "float64"), (1, "float64"), (2, "float64"), (2, "float64"))
+
+
+def _c_step_source() -> str:
+    """``c_step(pointers, dims, dt)``: ``_kernel.step_planned`` behind a C signature.
+
+    ``pointers[k]`` is the data of the k-th array of :data:`C_STEP_ARRAYS`; ``dims`` holds
+    ``has_base`` and then the shape of each array in turn.  ``make_c_step`` compiles it as a
+    Numba ``cfunc`` (cached like the rest), when the FMU's binary first asks for it.
+    """
+    lines, args, d = [], [], 1
+    for k, (ndim, dtype) in enumerate(C_STEP_ARRAYS):
+        shape = ", ".join(f"dims[{d + j}]" for j in range(ndim)) + ("," if ndim == 1 else "")
+        lines.append(f"    a{k} = _numba.carray(pointers[{k}], ({shape}), _np.{dtype})\n")
+        args.append(f"a{k}")
+        d += ndim
+    return ("import numpy as _np\n"
+            "\n\ndef c_step(pointers, dims, dt):\n"
+            + "".join(lines)
+            + f"    return step_planned(dt, dims[0], {', '.join(args)})\n"
+            "\n\ndef make_c_step():\n"
+            "    from numba import types as _t\n"
+            "    sig = _t.int64(_t.CPointer(_t.voidptr), _t.CPointer(_t.int64), _t.float64)\n"
+            f"    return _numba.cfunc(sig, cache=True, error_model='numpy')(c_step)\n")
 
 
 def _functions(source: str) -> list[str]:
@@ -69,9 +100,10 @@ def _functions(source: str) -> list[str]:
     return [node.name for node in ast.parse(source).body if isinstance(node, ast.FunctionDef)]
 
 
-def jit_footer(source: str, cold=()) -> str:
+def jit_footer(source: str, cold=(), tail: str = "") -> str:
     """The footer that compiles every top-level function of ``source`` with Numba: those named
-    in ``cold`` without ``forceinline`` (rarely taken branches kept out of the hot loop)."""
+    in ``cold`` without ``forceinline`` (rarely taken branches kept out of the hot loop); then
+    ``tail``, source that uses the compiled functions (the kernel's C entry)."""
     # All functions are rebound before any is called: Numba resolves each callee as a global
     # when its caller is first compiled.
     return (
@@ -79,6 +111,7 @@ def jit_footer(source: str, cold=()) -> str:
         "import numba as _numba\n"
         + "".join(f"{name} = _numba.njit({_JIT_OPTIONS_COLD if name in cold else _JIT_OPTIONS})"
                   f"({name})\n" for name in _functions(source))
+        + tail
     )
 
 
@@ -126,8 +159,8 @@ def _write_once(path: Path, text: bytes) -> None:
             os.unlink(tmp)
 
 
-def _place_source(source: str, stem: str, cold) -> tuple[Path, str]:
-    text = (source + jit_footer(source, cold)).encode("utf-8")
+def _place_source(source: str, stem: str, cold, tail: str) -> tuple[Path, str]:
+    text = (source + jit_footer(source, cold, tail)).encode("utf-8")
     digest = hashlib.sha256(text).hexdigest()[:16]
     name = f"jfmu_{stem}_{digest}"
     errors = []
@@ -145,7 +178,7 @@ def _place_source(source: str, stem: str, cold) -> tuple[Path, str]:
     raise ImportError("no writable cache folder for the compiled kernel: " + "; ".join(errors))
 
 
-def compile_source(source: str, stem: str, cold=()):
+def compile_source(source: str, stem: str, cold=(), tail: str = ""):
     """Compile every top-level function of the kernel-style ``source`` with Numba, cached.
 
     The source with :func:`jit_footer` appended is written once to
@@ -161,6 +194,9 @@ def compile_source(source: str, stem: str, cold=()):
         Name part of the cache folder and module, e.g. ``"kernel"``.
     cold : sequence of str
         Functions compiled without ``forceinline``.
+    tail : str
+        Source appended after the compiled functions, which may use them (the kernel's C
+        entry, :func:`c_step_entry`).
 
     Returns
     -------
@@ -176,7 +212,7 @@ def compile_source(source: str, stem: str, cold=()):
         raise ImportError("JOINTFMU_KERNEL=python is set")
     import numba  # noqa: F401 - fail here, with numba's own message, when it is missing
 
-    path, name = _place_source(source, stem, tuple(cold))
+    path, name = _place_source(source, stem, tuple(cold), tail)
     mod = sys.modules.get(name)
     if mod is None:  # two FMUs in one process share one compiled kernel
         spec = importlib.util.spec_from_file_location(name, path)
@@ -187,17 +223,19 @@ def compile_source(source: str, stem: str, cold=()):
 
 
 def _load():
-    return compile_source(Path(_K.__file__).read_text(encoding="utf-8"), "kernel", _K.COLD)
+    return compile_source(Path(_K.__file__).read_text(encoding="utf-8"), "kernel",
+                          _K.COLD + _K.ENTRIES, _c_step_source())
 
 
 def _self_check(mod) -> None:
-    """Compile (or load from cache) ``step_all`` and ``refresh`` with the argument types the
-    simulator uses, and compare a short run with reversals, wiping-out and macro-slip against the
-    plain-Python kernel.
+    """Compile (or load from cache) ``step_planned`` and ``refresh`` with the argument types
+    the simulator uses, and compare a short run with reversals, wiping-out and macro-slip against
+    the plain-Python kernel.
 
-    Only these two are called (they contain every other function); each further entry point
-    called here would cost one more cache load (about 0.05 s) at every start.  ``joint_move``
-    and ``joint_set_virgin`` compile, or load from the cache, at their first call.
+    Only these two are called (they contain every other function of a step); each further entry
+    point called here would cost one more cache load (about 0.05 s) at every start.
+    ``joint_move``, ``joint_set_virgin`` and ``undo`` compile, or load from the cache, at their
+    first call; the C entry (:func:`c_step_entry`) when the FMU's binary asks for it.
     """
     n, cap = 2, 6
     jc = np.zeros((n, _K.NJC))
@@ -237,20 +275,58 @@ def _self_check(mod) -> None:
         for i in range(n):
             _K.joint_set_virgin(i, 0.0, jc, js)
         st[:, 5] = 0.1
-        n_sub = np.array([3, 2], dtype=np.int64)
+        # the plan of the step size 0.02 in the second of two slots
+        plan_dt = np.array([np.nan, 0.02])
+        plan_nsub = np.array([[1, 1], [3, 2]], dtype=np.int64)
+        plan_coef = np.stack([coef, coef])
+        clock = np.zeros(2)
         # inputs: no points, the two modal forces, base acceleration; one output point
         mp = np.array([[0.5, -0.25, 1.0], [0.3, 0.1, 2.0]])
         f = np.zeros(n)
         y = np.zeros(4 * n + 3 + _K.Y_TAIL)
         st_s, js_s = np.zeros_like(st), np.zeros_like(js)
+        codes = []
         for k in range(150):
             u = np.array([20.0, -40.0, 0.3]) * np.sin(0.37 * k) * np.exp(-0.02 * k)
-            kern.step_all(n_sub, coef, u, mp, st, jc, js, stk, bk, f, y, st_s, js_s)
+            if k == 70:
+                u[1] = np.nan    # refused, nothing changes
+            codes.append(kern.step_planned(0.02, 1, plan_dt, plan_nsub, plan_coef, clock, u, mp,
+                                           st, jc, js, stk, bk, f, y, st_s, js_s))
         kern.refresh(u * 0.5, mp, st, jc, js, f, y)
-        results.append(np.concatenate([st.ravel(), js.ravel(), stk.ravel(), y, st_s.ravel()]))
+        results.append(np.concatenate([st.ravel(), js.ravel(), stk.ravel(), y, st_s.ravel(),
+                                       clock, codes]))
     if not np.array_equal(results[0], results[1]):
         raise ImportError("the compiled kernel disagrees with the plain-Python kernel on the "
                           "self-check; not used")
+
+
+def c_step_entry(args):
+    """``(address, pointers, dims)`` of the C entry of ``step_planned`` (see
+    :meth:`.integrate.ModalSimulator.c_step_entry`) over ``args``, the arguments of
+    ``step_planned`` after ``dt``: ``has_base`` and the arrays of :data:`C_STEP_ARRAYS`.
+
+    The arrays are checked here (number of dimensions, dtype, C order, writable), since the C
+    entry can check nothing.  The first call in a process compiles the entry (about 2 s) or
+    loads it from the cache.
+    """
+    has_base, arrays = args[0], args[1:]
+    if len(arrays) != len(C_STEP_ARRAYS):
+        raise ValueError(f"c_step_entry: {len(arrays)} arrays, expected {len(C_STEP_ARRAYS)}")
+    pointers, dims = [], [int(has_base)]
+    for k, (a, (ndim, dtype)) in enumerate(zip(arrays, C_STEP_ARRAYS)):
+        if not (isinstance(a, np.ndarray) and a.ndim == ndim and a.dtype == np.dtype(dtype)
+                and a.flags.c_contiguous and a.flags.writeable):
+            raise ValueError(f"c_step_entry: array {k} is not a writable C-ordered {ndim}-d "
+                             f"{dtype} array")
+        pointers.append(a.ctypes.data)
+        dims.extend(int(x) for x in a.shape)
+    if not _C_STEP:
+        _C_STEP.append(_mod.make_c_step())
+    return _C_STEP[0].address, tuple(pointers), tuple(dims)
+
+
+#: The compiled C entry, made at the first call of c_step_entry.
+_C_STEP: list = []
 
 
 def bind(func, args):
@@ -261,7 +337,8 @@ def bind(func, args):
     machine code: about 0.1 us per array argument here, 1.8 us for the 13 arrays of
     ``step_all``, which a co-simulation pays at every communication step.  The entry point
     returned by ``Dispatcher.compile(signature)`` (Numba's public API; compiled now, or loaded
-    from the cache) runs the same machine code without it (0.9 us measured for ``step_all``).
+    from the cache) runs the same machine code without it (0.9 us measured for ``step_all``;
+    ``step_planned``, which the simulator calls now, takes 15 arrays).
 
     It converts its arguments as the signature says and checks nothing, so the caller must
     pass arrays of exactly the types of ``args`` (dtype, number of dimensions, C order,
@@ -279,4 +356,6 @@ advance = _mod.advance
 joint_move = _mod.joint_move
 joint_set_virgin = _mod.joint_set_virgin
 step_all = _mod.step_all
+step_planned = _mod.step_planned
+undo = _mod.undo
 refresh = _mod.refresh

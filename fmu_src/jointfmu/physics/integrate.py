@@ -54,7 +54,9 @@ DEFAULT_MERGE_TOL = 1e-10
 #: Reversal stack entries per mode (a hard bound; reaching it drops the innermost loop).
 DEFAULT_STACK_CAPACITY = 4096
 #: Largest magnitude accepted for an input (keeps every intermediate value finite).
-MAX_INPUT = 1e12
+MAX_INPUT = K.MAX_INPUT
+#: Step sizes whose plan (sub-step counts and coefficients) is kept at once.
+PLAN_SLOTS = 16
 
 #: 3: the joint state ``js`` also caches the branch root, the closure point and the power
 #: x^(chi+2) at the joint's position (_kernel.NJS = 20).
@@ -194,7 +196,8 @@ class ModalSimulator:
         self.steps_per_period = spp
         self.merge_tol = float(merge_tol)
         kern, self.kernel = _select_kernel(kernel)
-        self._step_all, self._refresh = kern.step_all, kern.refresh
+        self._kern = kern
+        self._step, self._refresh = kern.step_planned, kern.refresh
         n = self.model.n_modes
         # each mode's longest sub-step, from its own frequency
         self._h_mode = 2.0 * math.pi / (spp * self.model.omega0)
@@ -204,7 +207,12 @@ class ModalSimulator:
         self._cap = int(stack_capacity)
         self._q0 = self._vector(q0, "q0", n)
         self._qdot0 = self._vector(qdot0, "qdot0", n)
+        # plans per step size (see _plan), in arrays the kernel reads itself: a step with a
+        # step size planned before needs no Python (step_planned finds its slot)
         self._plans: dict[float, tuple[np.ndarray, np.ndarray]] = {}
+        self._plan_dt = np.full(PLAN_SLOTS, np.nan)
+        self._plan_nsub = np.zeros((PLAN_SLOTS, n), dtype=np.int64)
+        self._plan_coef = np.zeros((PLAN_SLOTS, n, 11))
         self._st = np.zeros((n, 6))
         self._js = np.zeros((n, K.NJS))
         self._stk = np.zeros((n, self._cap, 3))
@@ -239,16 +247,17 @@ class ModalSimulator:
             "point_a": slice(o + 2 * self._n_out, o + 3 * self._n_out),
         }
         self._tail = o + 3 * self._n_out
-        self._fresh = False  # y and f agree with the state and the inputs
-        self._step_args = self._step_arrays()
+        # time and whether y and f agree with the state and the inputs (kernel.CLOCK_*): in a
+        # buffer, because the kernel updates them when the FMU's binary steps without Python
+        self._clk = array.array("d", bytes(16))
+        self._clock = np.frombuffer(self._clk, dtype=float)
+        self._step_args = (int(self.model.has_base),) + self._step_arrays()
         bind = getattr(kern, "bind", None)
         if bind is not None:
             # the compiled functions bound to the types of this simulator's arrays (no
-            # per-call dispatch); the arrays are allocated once, above and in _plan
-            plan = (np.zeros(n, dtype=np.int64), np.zeros((n, 11)))
-            self._step_all = bind(self._step_all, plan + self._step_arrays())
+            # per-call dispatch); the arrays are allocated once, above
+            self._step = bind(self._step, (1e-3,) + self._step_args)
             self._refresh = bind(self._refresh, self._refresh_arrays())
-        self.time = 0.0
         self.reset()
 
     # -- set-up ------------------------------------------------------------------------------
@@ -260,6 +269,16 @@ class ModalSimulator:
         if a.shape != (n,) or not np.all(np.isfinite(a)):
             raise InputError(f"{name}: must be {n} finite numbers (one per mode), got {value!r}")
         return a.copy()
+
+    @property
+    def time(self) -> float:
+        """Simulated time [s]: the sum of the steps taken since the start (or reset, or the
+        restored state's time)."""
+        return self._clk[K.CLOCK_T]
+
+    @time.setter
+    def time(self, value: float) -> None:
+        self._clk[K.CLOCK_T] = float(value)
 
     def reset(self) -> None:
         """Back to the initial state: time 0, initial conditions, virgin joints, inputs zero."""
@@ -274,7 +293,7 @@ class ModalSimulator:
         for i in range(n):
             K.joint_set_virgin(i, float(self._q0[i]), self._jc, self._js)
         self._u[:] = 0.0
-        self._fresh = False
+        self._clk[K.CLOCK_FRESH] = 0.0
         self._e0 = float(self.kinetic_potential_energy.sum() + self._js[:, K.E_PREV].sum())
 
     def set_inputs(self, point_forces=None, modal_forces=None, base_acc=None) -> None:
@@ -308,7 +327,7 @@ class ModalSimulator:
             self._u[:n_in] = new_p
         if new_m is not None:
             self._u[n_in:-1] = new_m
-        self._fresh = False
+        self._clk[K.CLOCK_FRESH] = 0.0
 
     #: Input groups of :meth:`set_inputs`, in the order of the input vector.
     _INPUT_NAMES = ("point_forces", "modal_forces", "base_acc")
@@ -359,7 +378,7 @@ class ModalSimulator:
         ubuf = self._ubuf
         for p, x in checked:
             ubuf[p] = x
-        self._fresh = False
+        self._clk[K.CLOCK_FRESH] = 0.0
 
     def set_input_value(self, position: int, value: float) -> None:
         """Set one held input by position (from :meth:`input_index`): :meth:`set_input_values`
@@ -373,7 +392,7 @@ class ModalSimulator:
         if type(position) is int and type(value) is float and 0 <= position < self._base_pos \
                 and -MAX_INPUT <= value <= MAX_INPUT:
             self._ubuf[position] = value
-            self._fresh = False
+            self._clk[K.CLOCK_FRESH] = 0.0
         else:   # the base acceleration, other types, refused values: the general path decides
             self.set_input_values((position,), (value,))
 
@@ -414,9 +433,11 @@ class ModalSimulator:
         return values
 
     def _step_arrays(self) -> tuple:
-        """The arguments of the kernel's ``step_all`` after the plan (n_sub, coef)."""
-        return (self._u, self._mp, self._st, self._jc, self._js, self._stk, self._bk, self._f,
-                self._y, self._st_saved, self._js_saved)
+        """The array arguments of the kernel's ``step_planned``, in its order (after ``dt``
+        and ``has_base``)."""
+        return (self._plan_dt, self._plan_nsub, self._plan_coef, self._clock, self._u, self._mp,
+                self._st, self._jc, self._js, self._stk, self._bk, self._f, self._y,
+                self._st_saved, self._js_saved)
 
     def _refresh_arrays(self) -> tuple:
         """The arguments of the kernel's ``refresh``."""
@@ -424,9 +445,9 @@ class ModalSimulator:
 
     def _update(self) -> None:
         """Bring the modal force and the outputs in line with the inputs (no time passes)."""
-        if not self._fresh:
+        if not self._clk[K.CLOCK_FRESH]:
             self._refresh(*self._refresh_arrays())
-            self._fresh = True
+            self._clk[K.CLOCK_FRESH] = 1.0
 
     # -- stepping ----------------------------------------------------------------------------
     def sub_steps(self, dt: float) -> np.ndarray:
@@ -434,14 +455,26 @@ class ModalSimulator:
         return self._plan(float(dt))[0].copy()
 
     def _plan(self, dt: float) -> tuple[np.ndarray, np.ndarray]:
-        """Per-mode sub-step counts and step coefficients for a caller's step ``dt`` (cached)."""
+        """Per-mode sub-step counts and step coefficients for a caller's step ``dt``.
+
+        A step size ``0 < dt < inf`` is kept in a slot of the plan arrays, where the kernel's
+        ``step_planned`` finds it; when every slot is taken they are all freed first.
+        """
         plan = self._plans.get(dt)
         if plan is None:
-            if len(self._plans) > 16:
-                self._plans.clear()
             n_sub = np.maximum(1, np.ceil(dt / self._h_mode * (1.0 - 1e-12))).astype(np.int64)
             coef = step_coefficients(self.model.omega0, self.model.zeta, dt / n_sub)
-            plan = self._plans[dt] = (n_sub, coef)
+            if not 0.0 < dt < math.inf:
+                return n_sub, coef
+            slot = len(self._plans)
+            if slot == PLAN_SLOTS:
+                self._plans.clear()
+                self._plan_dt[:] = np.nan
+                slot = 0
+            self._plan_nsub[slot] = n_sub
+            self._plan_coef[slot] = coef
+            self._plan_dt[slot] = dt     # last: the slot is whole before the kernel can match it
+            plan = self._plans[dt] = (self._plan_nsub[slot], self._plan_coef[slot])
         return plan
 
     @property
@@ -451,10 +484,14 @@ class ModalSimulator:
         return self._f.copy()
 
     def step(self, dt: float) -> tuple[bool, str]:
-        """Advance by ``dt`` seconds with the held inputs (see the module docstring)."""
-        # a plan exists only for step sizes checked before (sub_steps may plan others)
-        plan = self._plans.get(dt) if type(dt) is float and 0.0 < dt < math.inf else None
-        if plan is None:   # a step size not seen before, or not a float: check it, then plan
+        """Advance by ``dt`` seconds with the held inputs (see the module docstring).
+
+        The kernel's ``step_planned`` does the whole step, time and undo of a failure included;
+        Python only checks an unusual step size and plans a step size seen for the first time
+        (the FMU's native binary calls the same compiled function without Python, see
+        :meth:`c_step_entry`).
+        """
+        if type(dt) is not float or not 0.0 < dt < math.inf:   # check it
             try:
                 dt = float(dt)
             except (TypeError, ValueError):
@@ -463,28 +500,46 @@ class ModalSimulator:
                 return False, f"step size {dt!r}: must be finite and >= 0"
             if dt == 0.0:
                 return True, ""
-            plan = self._plan(dt)
         try:
-            check = self._step_all(plan[0], plan[1], *self._step_args)
-            ok = math.isfinite(check)
-            self._fresh = ok
-            message = "" if ok else "the step produced a non-finite state"
+            code = self._step(dt, *self._step_args)
         except Exception as exc:  # noqa: BLE001 - reported, never thrown across the FMI boundary
-            ok, message = False, f"the step failed: {exc}"
-        if not ok:
-            self._undo()
-            return False, f"step from t = {self.time:.9g} s by {dt:.3g} s: {message}; state kept"
-        self.time += dt
-        return True, ""
+            code, message = self._failed(exc)
+        if code == K.STEP_NO_PLAN:     # a step size not seen before
+            self._plan(dt)
+            try:
+                code = self._step(dt, *self._step_args)
+            except Exception as exc:  # noqa: BLE001
+                code, message = self._failed(exc)
+        if code == K.STEP_DONE:
+            return True, ""
+        if code == K.STEP_FAILED:
+            message = "the step produced a non-finite state"
+        elif code == K.STEP_INPUT:
+            message = self._refused_input()
+        elif code is not None:
+            message = f"the kernel returned {code!r}"
+        return False, f"step from t = {self.time:.9g} s by {dt:.3g} s: {message}; state kept"
+
+    def _failed(self, exc: Exception) -> tuple[None, str]:
+        """The kernel raised inside a step (the plain-Python kernel can, e.g. on an overflow):
+        undo it (the kernel copies the state before it changes any of it)."""
+        self._undo()
+        return None, f"the step failed: {exc}"
+
+    def _refused_input(self) -> str:
+        """What the kernel refused in the input buffer (written from outside: see
+        :meth:`input_buffer`)."""
+        has_base = self.model.has_base
+        for p, x in enumerate(self._ubuf):
+            if not -MAX_INPUT <= x <= MAX_INPUT or (p == self._base_pos and x != 0.0
+                                                    and not has_base):
+                return self._input_problem(p, x)
+        return "an input was refused"
 
     def _undo(self) -> None:
-        js = self._js_saved
-        for i in range(self.model.n_modes):
-            low, d0 = int(self._js[i, K.LOW]), int(js[i, K.DEPTH])
-            if low < d0:
-                self._stk[i, low:d0] = self._bk[i, low:d0]
-        self._st[:], self._js[:] = self._st_saved, js
-        self._fresh = False
+        """Back to the state before a step the kernel did not finish (see kernel.undo)."""
+        self._kern.undo(self._st, self._js, self._stk, self._bk, self._st_saved, self._js_saved)
+        self._clk[K.CLOCK_FRESH] = 0.0
 
     # -- outputs -----------------------------------------------------------------------------
     def _out(self, name: str) -> np.ndarray:
@@ -519,21 +574,43 @@ class ModalSimulator:
         calls :meth:`inputs_written` before anything else reads the simulator."""
         return self._ubuf
 
+    def c_step_entry(self):
+        """The compiled step as a C function over this simulator's arrays, for a caller
+        without Python (the FMU's native binary); None with the plain-Python kernel.
+
+        Returns
+        -------
+        tuple or None
+            ``(address, pointers, dims)``: calling the C function at ``address``,
+            ``int64_t step(void **pointers, const int64_t *dims, double dt)``, with arrays of
+            these pointers and dims does what :meth:`step` does for a step size planned before
+            (the kernel's ``step_planned``: inputs checked, time advanced, a failed step undone)
+            and returns its code (``kernel.STEP_*``); for any code but ``STEP_DONE`` the caller
+            calls :meth:`step` (which plans, or words the refusal).  The pointers are to this
+            simulator's arrays, allocated once: valid while the caller holds a reference to
+            the simulator.  The caller runs it only when nothing else uses the simulator, and
+            reads the outputs from :meth:`output_buffer`'s buffer afterwards.
+        """
+        entry = getattr(self._kern, "c_step_entry", None)
+        if entry is None:
+            return None
+        return entry(self._step_args)
+
     def inputs_written(self) -> None:
         """The input buffer was written from outside: outputs are recomputed when next read."""
-        self._fresh = False
+        self._clk[K.CLOCK_FRESH] = 0.0
 
     @property
     def outputs_current(self) -> bool:
         """Whether the output buffer already agrees with the state and the inputs."""
-        return self._fresh
+        return bool(self._clk[K.CLOCK_FRESH])
 
     def output_buffer(self) -> array.array:
         """Every output at once as a flat ``array.array("d")`` holding the same numbers as
         :meth:`output_values` (positions from :meth:`output_index`); indexing it gives Python
         floats at a fraction of NumPy's per-item cost.  The buffer is the simulator's own: read
         it, do not keep it across steps or change it."""
-        if not self._fresh:
+        if not self._clk[K.CLOCK_FRESH]:
             self._update()
         return self._ybuf
 
@@ -673,6 +750,6 @@ class ModalSimulator:
         self._js[:] = parts["js"]
         self._stk[:, :depth] = parts["stk"]
         self._u[:] = parts["u"]
-        self._fresh = False
+        self._clk[K.CLOCK_FRESH] = 0.0
         self._e0 = float(parts["e0"])
         self.time = float(parts["time"])

@@ -62,7 +62,10 @@ from __future__ import annotations
 import math
 
 #: Functions taken rarely, which a compiler should call rather than inline into the hot loop.
-COLD = ("_onset_correction", "onset_crossing")
+COLD = ("_onset_correction", "onset_crossing", "undo")
+#: Entry points called from outside the kernel, compiled once and called, not inlined, by the
+#: C entry that wraps them (see compiled.py).
+ENTRIES = ("step_planned",)
 
 # Indices into the per-mode constant table ``jc`` (shape (N, NJC)).
 # (CKC = -CK (E2 - 1), the factor of the tangent's slope, computed once.)
@@ -78,6 +81,18 @@ NJC = 15
 (U_PREV, F_PREV, E_PREV, D_ACC, D_PREV, DIRN, DEPTH, N_MERGE, N_FORCED, LOW, KTAN, KCURV,
  ONSET_HI, ONSET_LO, ROOT_U, ROOT_F, ROOT_E, ROOT_C, CLOSE_U, P_PREV) = range(20)
 NJS = 20
+
+#: Largest magnitude accepted for an input (keeps every intermediate value finite).
+MAX_INPUT = 1e12
+
+# Indices into the simulator's ``clock`` (shape (2,)): the time [s], and 1.0 when the modal
+# force and the outputs agree with the state and the inputs (0.0 otherwise).
+CLOCK_T, CLOCK_FRESH = 0, 1
+
+# What :func:`step_planned` returns.  STEP_NO_PLAN: no coefficients for this step size (the
+# caller plans, then calls again); STEP_INPUT: an input is outside the allowed range; both leave
+# everything as it was.  STEP_FAILED: the step gave a non-finite state and was undone.
+STEP_DONE, STEP_NO_PLAN, STEP_INPUT, STEP_FAILED = 1, 0, 2, -1
 
 
 def _branch(x, jc, i):
@@ -615,3 +630,81 @@ def refresh(u, mp, st, jc, js, f, y):
     """Modal force and outputs after the inputs changed (no time passes)."""
     modal_inputs(u, mp, f)
     outputs(u, mp, st, jc, js, f, y)
+
+
+def undo(st, js, stk, bk, st_saved, js_saved):
+    """Put back the state from before the last :func:`step_all`: ``st`` and ``js`` from their
+    copies, and the stack entries the step dropped (from ``js[i, LOW]`` up to the depth it
+    started at) from the backup ``bk`` (see :func:`_lower_depth`)."""
+    for i in range(st.shape[0]):
+        low, d0 = int(js[i, LOW]), int(js_saved[i, DEPTH])
+        for j in range(low, d0):
+            stk[i, j, 0] = bk[i, j, 0]
+            stk[i, j, 1] = bk[i, j, 1]
+            stk[i, j, 2] = bk[i, j, 2]
+        for j in range(st.shape[1]):
+            st[i, j] = st_saved[i, j]
+        for j in range(js.shape[1]):
+            js[i, j] = js_saved[i, j]
+
+
+def inputs_allowed(u, has_base):
+    """True when every held input is finite with magnitude <= MAX_INPUT, and the base
+    acceleration (the last input) is 0 on a structure without a base mounting."""
+    for k in range(u.shape[0]):
+        x = u[k]
+        if not (-MAX_INPUT <= x <= MAX_INPUT):   # also NaN
+            return False
+    return has_base != 0 or u[u.shape[0] - 1] == 0.0
+
+
+def step_planned(dt, has_base, plan_dt, plan_nsub, plan_coef, clock, u, mp, st, jc, js, stk, bk,
+                 f, y, st_saved, js_saved):
+    """One caller's step of ``dt`` seconds with a plan made before: the whole of a step that
+    needs no Python, for the simulator and for the FMU's binary alike.
+
+    Parameters
+    ----------
+    dt : float
+        The step [s]; it runs only when ``0 < dt < inf`` and ``plan_dt`` holds it exactly.
+    has_base : int
+        1 when the structure has a base mounting (its base acceleration may be non-zero).
+    plan_dt : ndarray, shape (P,)
+        Step sizes planned so far (NaN: a free slot).
+    plan_nsub : ndarray of int64, shape (P, N)
+        Sub-steps per mode for each planned step size (see :func:`advance`).
+    plan_coef : ndarray, shape (P, N, 11)
+        Step coefficients for each planned step size (see :func:`advance`).
+    clock : ndarray, shape (2,)
+        Time [s] and the outputs-current flag (``CLOCK_T``, ``CLOCK_FRESH``).
+    u, mp, st, jc, js, stk, bk, f, y, st_saved, js_saved :
+        As :func:`step_all`.
+
+    Returns
+    -------
+    int
+        ``STEP_DONE``: stepped, the time advanced by ``dt``, the outputs current.
+        ``STEP_NO_PLAN`` (no plan for ``dt``) or ``STEP_INPUT`` (an input out of range, see
+        :func:`inputs_allowed`): nothing changed.  ``STEP_FAILED``: the new state was not
+        finite; the state is back as it was (:func:`undo`) and the outputs are not current.
+    """
+    if not 0.0 < dt < math.inf:
+        return STEP_NO_PLAN
+    slot = -1
+    for k in range(plan_dt.shape[0]):
+        if plan_dt[k] == dt:
+            slot = k
+            break
+    if slot < 0:
+        return STEP_NO_PLAN
+    if not inputs_allowed(u, has_base):
+        return STEP_INPUT
+    check = step_all(plan_nsub[slot], plan_coef[slot], u, mp, st, jc, js, stk, bk, f, y,
+                     st_saved, js_saved)
+    if not math.isfinite(check):
+        undo(st, js, stk, bk, st_saved, js_saved)
+        clock[CLOCK_FRESH] = 0.0
+        return STEP_FAILED
+    clock[CLOCK_FRESH] = 1.0
+    clock[CLOCK_T] += dt
+    return STEP_DONE
