@@ -8,7 +8,9 @@ stack.  The joint physics itself is checked against closed forms in test_iwan.py
 """
 from __future__ import annotations
 
+import ctypes
 import json
+import math
 import os
 import subprocess
 import sys
@@ -18,7 +20,8 @@ import pytest
 
 from jointfmu import JointParams, Mode, ParameterSet, Point, Provenance
 from jointfmu.errors import InputError
-from jointfmu.physics.integrate import ModalSimulator, kernel_info
+from jointfmu.physics import kernel as K
+from jointfmu.physics.integrate import PLAN_SLOTS, ModalSimulator, kernel_info
 
 numba = pytest.importorskip("numba")
 if os.environ.get("JOINTFMU_KERNEL", "").strip().lower() == "python":
@@ -138,6 +141,99 @@ def test_bound_entry_equals_numba_dispatch():
             assert s.step(1e-3)[0]
         assert np.array_equal(bound.output_values(), plain.output_values())
     assert bound.get_state() == plain.get_state()
+
+
+def c_step(sim):
+    """The simulator's compiled C entry (what the FMU's native binary calls), called through
+    ctypes: ``dt -> kernel.STEP_* code``."""
+    address, pointers, dims = sim.c_step_entry()
+    fn = ctypes.CFUNCTYPE(ctypes.c_int64, ctypes.c_void_p, ctypes.c_void_p,
+                          ctypes.c_double)(address)
+    p = (ctypes.c_void_p * len(pointers))(*pointers)
+    d = (ctypes.c_int64 * len(dims))(*dims)
+    return lambda dt: fn(p, d, dt)
+
+
+#: 20 step sizes in turn: more than the plan slots, so that the slots are also freed and reused.
+STEP_SIZES = [2e-4 * 1.17 ** k for k in range(20)]
+
+
+def test_c_entry_equals_the_python_path_bit_for_bit():
+    """A long run with varied inputs and step sizes through the C entry (falling back to
+    ``step`` when it has no plan, as the FMU's binary does) and through ``step`` with the
+    compiled and the plain-Python kernel: outputs after every step and the final states are
+    equal to the bit.  (Derived here: the C entry runs the same compiled step_planned.)"""
+    assert len(STEP_SIZES) > PLAN_SLOTS
+    sims = [ModalSimulator(three_modes(), kernel=k, merge_tol=1e-5, stack_capacity=8)
+            for k in ("python", "compiled", "compiled")]
+    step_c = c_step(sims[2])
+    pos = sims[0].input_index("point_forces", 0)
+    codes = []
+    for k, x in enumerate(force_history(700, 1e-3)):
+        # mostly ten step sizes in turn, now and then one of the ten others
+        dt = STEP_SIZES[(k * 7) % 10] if k % 30 else STEP_SIZES[10 + (k // 30) % 10]
+        for s in sims:
+            s.set_input_value(pos, float(x))
+        assert sims[0].step(dt) == (True, "") and sims[1].step(dt) == (True, "")
+        codes.append(step_c(dt))
+        if codes[-1] != K.STEP_DONE:
+            assert codes[-1] == K.STEP_NO_PLAN
+            assert sims[2].step(dt) == (True, "")
+        ref = sims[0].output_values()
+        for s in sims[1:]:
+            assert np.array_equal(s.output_values(), ref), (k, dt)
+    assert sims[0].get_state() == sims[1].get_state() == sims[2].get_state()
+    assert sims[2].time == sims[0].time
+    # the C entry did most steps; the others were step sizes it had no plan for
+    assert codes.count(K.STEP_DONE) > 0.8 * len(codes)
+    assert K.STEP_NO_PLAN in codes
+
+
+@pytest.mark.parametrize("where,value,says", [
+    ("point", math.nan, "point_forces[drive] = nan: must be finite"),
+    ("point", math.inf, "point_forces[drive] = inf: must be finite"),
+    ("modal", -math.inf, "modal_forces[m2] = -inf: must be finite"),
+    ("modal", 1.0000001e12, "modal_forces[m2] = 1000000100000.0: must be finite with |value| <= 1e+12"),
+    ("base", 1.0, "base_acc: this structure has no [base] mounting"),
+])
+def test_c_entry_refuses_a_bad_input_and_changes_nothing(where, value, says):
+    """An input the checks of set_input_value refuse, written into the input buffer from
+    outside: the C entry does not step (STEP_INPUT) and changes nothing; ``step`` refuses
+    it with a message naming the input."""
+    sim = ModalSimulator(three_modes(), kernel="compiled")
+    sim.set_input_values([0], [3.0])
+    assert sim.step(1e-3)[0]
+    before = (sim.get_state(), bytes(sim.output_buffer()))
+    buf = sim.input_buffer()
+    buf[{"point": 0, "modal": 2, "base": len(buf) - 1}[where]] = value
+    sim.inputs_written()
+    assert c_step(sim)(1e-3) == K.STEP_INPUT
+    ok, msg = sim.step(1e-3)
+    assert not ok and says in msg and "state kept" in msg
+    buf[{"point": 0, "modal": 2, "base": len(buf) - 1}[where]] = 3.0 if where == "point" else 0.0
+    assert (sim.get_state(), bytes(sim.output_buffer())) == before
+
+
+@pytest.mark.filterwarnings("ignore:overflow encountered:RuntimeWarning")  # the energies at q0
+@pytest.mark.parametrize("path", ["c_entry", "step"])
+def test_a_failed_compiled_step_keeps_the_state(path):
+    """A state so large that the step overflows (a non-finite new state): the compiled step
+    undoes it, and the state, time and outputs are those from before, to the bit."""
+    sim = ModalSimulator(three_modes(), kernel="compiled", q0=[1e308, 0.0, 0.0],
+                         qdot0=[1e308, 0.0, 0.0])
+    sim.sub_steps(1e-3)          # planned: the C entry runs it
+    before = (sim.get_state(), sim.output_values().tobytes())
+    if path == "c_entry":
+        assert c_step(sim)(1e-3) == K.STEP_FAILED
+    else:
+        ok, msg = sim.step(1e-3)
+        assert not ok and "non-finite state; state kept" in msg
+    assert (sim.get_state(), sim.output_values().tobytes()) == before
+    assert sim.time == 0.0
+
+
+def test_plain_python_kernel_has_no_c_entry():
+    assert ModalSimulator(three_modes(), kernel="python").c_step_entry() is None
 
 
 def test_unknown_kernel_is_refused_with_the_allowed_values():
