@@ -475,14 +475,43 @@ class JointSlave(Fmi2Slave):
     def _native_do_step(self, current_time: float, step_size: float, vrs) -> int:
         """fmi2DoStep from the shell, one Python call: take the inputs ``vrs`` it wrote, step.
         Returns bit 0: stepped; bit 1: the simulator was replaced (the shell asks for the
-        layout again); bit 2: the outputs are current with the state and the inputs."""
+        layout again); bit 2: the outputs are current with the state and the inputs; bit 3:
+        the next steps may run in compiled code (see :meth:`_native_step_entry`)."""
         if vrs:
             self._native_take(vrs)
         sim = self._sim
         ok = self.do_step(current_time, step_size)
         new = self._sim
         return ((1 if ok else 0) | (2 if new is not sim else 0)
-                | (4 if new is not None and new.outputs_current else 0))
+                | (4 if new is not None and new.outputs_current else 0)
+                | (8 if ok and self._native_steps_allowed() else 0))
+
+    def _native_steps_allowed(self) -> bool:
+        """Whether a doStep may skip :meth:`do_step` and run the simulator's compiled step
+        alone, until the shell next calls into Python: True when do_step would do nothing but
+        step (state "step complete", which a step taken keeps; a simulator for the current
+        parameters; no input held back)."""
+        return (self._fmi_state == STEP_COMPLETE and self._sim is not None
+                and not self._settings_changed and not self._pending
+                and self._init_error is None and self._initialized)
+
+    def _native_step_entry(self):
+        """The simulator's compiled step for the shell: None (doStep goes through
+        :meth:`_native_do_step`), or ``(address, pointers, dims, simulator)`` from
+        :meth:`.ModalSimulator.c_step_entry`; the shell holds the simulator, whose arrays the
+        pointers point into.  The shell calls it when its result is ``STEP_DONE`` and goes
+        through _native_do_step otherwise (which plans a new step size, or words a refusal).
+        Asked again with the layout (:meth:`_native_layout`)."""
+        sim = self._sim
+        if sim is None:
+            return None
+        try:
+            entry = sim.c_step_entry()
+        except Exception as exc:     # the entry failed to compile: steps go through Python
+            self.log(f"compiled doStep not available, steps go through Python: "
+                     f"{type(exc).__name__}: {exc}", Fmi2Status.warning)
+            return None
+        return None if entry is None else entry + (sim,)
 
     def _native_refresh(self, vrs) -> int:
         """Bring the outputs in line with the inputs (the shell reads them next).  Returns bit

@@ -17,6 +17,16 @@
  * them to be thread-safe), and Python reads those buffers only inside calls the shell makes,
  * after it has handed its writes over.
  *
+ * fmi2DoStep, too, runs without Python when the simulator uses the compiled kernel: the slave
+ * hands over the address of the kernel's C entry (a Numba cfunc of kernel.step_planned) and
+ * pointers to the simulator's arrays (JointSlave._native_step_entry), and allows compiled steps
+ * after each doStep it ran itself (bit 3 of _native_do_step).  The entry checks the inputs,
+ * steps with a plan made before for that step size, advances the time and undoes a step that
+ * failed; whenever it does not step (no plan yet for this step size, an input refused, a failed
+ * step), doStep goes through Python as before, which plans, or refuses with its message, from
+ * the unchanged state.  Any other call into Python except reads withdraws the permission until
+ * the next doStep through Python (see compiled_do_step).
+ *
  * Types, function names and calling rules: FMI 2.0.x standard, sec. 2.1 (common API) and
  * sec. 4.2 (co-simulation API).  The few types needed are declared here.
  *
@@ -206,6 +216,13 @@ typedef struct {
     fmi2ValueReference *dirty;
     unsigned char *dirty_mark;
     size_t n_dirty;
+
+    /* the compiled step (see the top): valid when c_step is not NULL */
+    int64_t (*c_step)(void **pointers, const int64_t *dims, double dt);
+    void **c_pointers;
+    int64_t *c_dims;
+    PyObject *c_owner;   /* the simulator, whose arrays the pointers point into (a reference) */
+    int c_step_ok;       /* the slave allows compiled steps (until the next call into Python) */
 } Shell;
 
 /* ----------------------------------------------------------------------------------- logging */
@@ -345,8 +362,101 @@ static int report_exception(Shell *s, const char *where)
 }
 
 /* ------------------------------------------------------------------------------ fast layout */
+/* ----------------------------------------------------------------------------- compiled step */
+/* The codes of kernel.step_planned: only STEP_DONE means a step was taken. */
+#define STEP_DONE 1
+
+static void drop_step_entry(Shell *s)
+{
+    s->c_step = NULL;
+    s->c_step_ok = 0;
+    free(s->c_pointers);
+    free(s->c_dims);
+    s->c_pointers = NULL;
+    s->c_dims = NULL;
+    Py_CLEAR(s->c_owner);
+}
+
+static int take_integers(PyObject *seq, Py_ssize_t n, int64_t *dest)
+{
+    for (Py_ssize_t k = 0; k < n; k++) {
+        long long v = PyLong_AsLongLong(PyTuple_GET_ITEM(seq, k));
+        if (v == -1 && PyErr_Occurred()) return -1;
+        dest[k] = (int64_t)v;
+    }
+    return 0;
+}
+
+/* A Python exception is pending (GIL held) from asking for the compiled step: no reason to
+ * stop, doStep goes through Python; printed, and logged as a warning. */
+static void step_entry_unavailable(Shell *s)
+{
+    PyErr_Print(); /* to sys.stderr, cleared */
+    send_log(s, fmi2Warning, "logStatusWarning", "fmi2 shell: the compiled doStep is not "
+             "available (the error is on stderr); doStep goes through Python");
+}
+
+/* Ask the slave for its simulator's compiled step (GIL held, layout fetched).  None, or any
+ * problem, leaves it off: doStep then goes through Python, as with the plain-Python kernel. */
+static void fetch_step_entry(Shell *s)
+{
+    drop_step_entry(s);
+    PyObject *r = PyObject_CallMethod(s->slave, "_native_step_entry", NULL);
+    if (!r) {
+        step_entry_unavailable(s);
+        return;
+    }
+    drain_log(s);
+    if (r == Py_None) {
+        Py_DECREF(r);
+        return;
+    }
+    PyObject *addr, *ptrs, *dims, *owner;
+    if (!PyArg_ParseTuple(r, "OO!O!O", &addr, &PyTuple_Type, &ptrs, &PyTuple_Type, &dims,
+                          &owner))
+        goto fail;
+    Py_ssize_t np_ = PyTuple_GET_SIZE(ptrs), nd = PyTuple_GET_SIZE(dims);
+    void *fn = PyLong_AsVoidPtr(addr);
+    if (!fn && PyErr_Occurred()) goto fail;
+    s->c_pointers = malloc(sizeof(void *) * (size_t)(np_ ? np_ : 1));
+    s->c_dims = malloc(sizeof(int64_t) * (size_t)(nd ? nd : 1));
+    if (!s->c_pointers || !s->c_dims) {
+        PyErr_NoMemory();
+        goto fail;
+    }
+    for (Py_ssize_t k = 0; k < np_; k++) {
+        s->c_pointers[k] = PyLong_AsVoidPtr(PyTuple_GET_ITEM(ptrs, k));
+        if (!s->c_pointers[k] && PyErr_Occurred()) goto fail;
+    }
+    if (take_integers(dims, nd, s->c_dims) != 0) goto fail;
+    if (!fn) {
+        PyErr_SetString(PyExc_ValueError, "_native_step_entry: no address");
+        goto fail;
+    }
+    s->c_owner = new_ref(owner);
+    s->c_step = (int64_t(*)(void **, const int64_t *, double))fn;
+    Py_DECREF(r);
+    return;
+fail:
+    Py_DECREF(r);
+    step_entry_unavailable(s);
+    drop_step_entry(s);
+}
+
+/* fmi2DoStep without Python: 1 if the compiled entry took the step (outputs current), 0 if
+ * doStep must go through Python (not allowed now, inputs held back in the slave, or the entry
+ * did not step: it then changed nothing, or undid its failed step). */
+static int compiled_do_step(Shell *s, double dt)
+{
+    if (!s->c_step || !s->c_step_ok || s->py_pending || !s->has_layout) return 0;
+    if (s->c_step(s->c_pointers, s->c_dims, dt) != STEP_DONE) return 0;
+    s->out_fresh = 1;
+    return 1;
+}
+
 static void drop_layout(Shell *s)
 {
+    drop_step_entry(s);
     if (s->ubuf_obj) {
         PyBuffer_Release(&s->ubuf);
         Py_CLEAR(s->ubuf_obj);
@@ -451,6 +561,7 @@ static void fetch_layout(Shell *s)
     s->out_fresh = 0;
     s->has_layout = 1;
     Py_DECREF(r);
+    fetch_step_entry(s);
     return;
 fail:
     Py_DECREF(r);
@@ -722,6 +833,7 @@ static fmi2Status call_plain(Shell *s, const char *method, const char *fmi_name)
 {
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2OK;
+    s->c_step_ok = 0; /* the slave's state may change: the next doStep goes through Python */
     if (flush_inputs(s) != 0) status = fmi2Error;
     PyObject *r = status == fmi2OK ? PyObject_CallMethod(s->slave, method, NULL) : NULL;
     if (r) {
@@ -856,6 +968,7 @@ FMI2_EXPORT fmi2Status fmi2SetupExperiment(fmi2Component c, fmi2Boolean toleranc
     CHECK_STATE(fmi2SetupExperiment);
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2OK;
+    s->c_step_ok = 0;
     if (flush_inputs(s) != 0) status = fmi2Error;
     PyObject *r = status != fmi2OK ? NULL
         : PyObject_CallMethod(s->slave, "setup_experiment", "(dNN)", startTime,
@@ -922,6 +1035,7 @@ static fmi2Status python_set_real(Shell *s, const fmi2ValueReference vr[], size_
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2OK;
     PyObject *vrs = NULL, *vals = NULL, *r = NULL;
+    s->c_step_ok = 0; /* parameters may change: the next doStep goes through Python */
     if (flush_inputs(s) != 0) {
         status = fmi2Error;
         goto done;
@@ -1404,6 +1518,12 @@ FMI2_EXPORT fmi2Status fmi2DoStep(fmi2Component c, fmi2Real currentCommunication
     (void)noSetFMUStatePriorToCurrentPoint;
     SHELL_OR_ERROR(c);
     CHECK_STATE(fmi2DoStep);
+    if (compiled_do_step(s, communicationStepSize)) {
+        /* as below for a step taken (sec. 4.2.3): the state stays "step complete" */
+        s->step_refused = 0;
+        s->last_time = currentCommunicationPoint + communicationStepSize;
+        return fmi2OK;
+    }
     PyGILState_STATE g = PyGILState_Ensure();
     fmi2Status status = fmi2Error;
     PyObject *t = take_dirty(s);
@@ -1423,7 +1543,8 @@ FMI2_EXPORT fmi2Status fmi2DoStep(fmi2Component c, fmi2Real currentCommunication
     } else {
         drain_log(s);
         /* bit 0: stepped (fmi2OK) or refused (fmi2Discard, sec. 4.2.2); bit 1: the slave made a
-         * new simulator; bit 2: its outputs are current */
+         * new simulator; bit 2: its outputs are current; bit 3: the next steps may run
+         * compiled */
         status = (flags & 1) ? fmi2OK : fmi2Discard;
         if (flags & 2) fetch_layout(s);
         if (flags & 1) s->py_pending = 0; /* doStep hands every held input over */
@@ -1434,6 +1555,7 @@ FMI2_EXPORT fmi2Status fmi2DoStep(fmi2Component c, fmi2Real currentCommunication
         s->step_refused = !(flags & 1);
         s->last_time = (flags & 1) ? currentCommunicationPoint + communicationStepSize
                                    : currentCommunicationPoint;
+        s->c_step_ok = (flags & 8) != 0;
     }
     PyGILState_Release(g);
     return status;
