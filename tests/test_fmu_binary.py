@@ -279,6 +279,126 @@ def test_mixed_get_real_and_unknown_reference(open_slave, ps, kind):
     assert np.array_equal(s.get(), before) and s.get(["point.shaker.force"])[0] == 4.5
 
 
+# ------------------------------------------------------------------ doStep in compiled code
+#: Communication step sizes a run goes through in turn (one new size now and then).
+STEP_SIZES = (1e-4, 2e-4, 5e-4, 1e-3, 3.3e-4)
+
+
+def _drive_varied(s, n, seed):
+    """``n`` steps of a random force and base acceleration, the step size changing every 7
+    steps; rows of every output after each step."""
+    rng = np.random.default_rng(seed)
+    rows, t = [], 0.0
+    for k in range(n):
+        dt = STEP_SIZES[(k // 7) % len(STEP_SIZES)]
+        s.set({"point.shaker.force": 30.0 * rng.standard_normal(),
+               "base.acceleration": 5.0 * rng.standard_normal()})
+        s.fmu.doStep(currentCommunicationPoint=t, communicationStepSize=dt)
+        rows.append(s.get())
+        t += dt
+    return np.array(rows)
+
+
+def _count_python_steps(monkeypatch, result):
+    """Count the native slave's doSteps through Python (JointSlave._native_do_step)."""
+    import sys
+
+    ident = result.model_identifier
+    cls = getattr(sys.modules[ident], ident)
+    calls = []
+    through_python = cls._native_do_step
+
+    def counted(self, *args):
+        calls.append(args[1])
+        return through_python(self, *args)
+    monkeypatch.setattr(cls, "_native_do_step", counted)
+    return calls
+
+
+@needs_cc
+def test_compiled_do_step_equals_the_python_path(open_slave, built, monkeypatch):
+    """A long run, varied inputs and step sizes, through the native binary (doStep in compiled
+    code after the first step of each size) and through pythonfmu's binary (doStep through
+    Python every time): every output after every step and the serialized end states are equal
+    to the bit (derived here: both run the same compiled step_planned)."""
+    slaves = {kind: open_slave(kind, kind) for kind in ("native", "pythonfmu")}
+    calls = _count_python_steps(monkeypatch, built["native"])
+    for s in slaves.values():
+        s.init()
+    rows = {kind: _drive_varied(s, 1500, 5) for kind, s in slaves.items()}
+    assert np.array_equal(rows["native"], rows["pythonfmu"])
+    states = {kind: s.fmu.serializeFMUstate(s.fmu.getFMUstate()) for kind, s in slaves.items()}
+    assert states["native"] == states["pythonfmu"]
+    assert sorted(set(calls)) == sorted(STEP_SIZES) and len(calls) == len(STEP_SIZES)
+
+
+@needs_cc
+def test_python_calls_between_steps_send_the_next_step_through_python(open_slave, built,
+                                                                      monkeypatch):
+    """A parameter set (refused after initialization, with its message), a state restored, an
+    output read, a NaN input: only a doStep through Python allows compiled steps again, and the
+    numbers stay those of pythonfmu's binary driven the same way."""
+    slaves = {kind: open_slave(kind, kind) for kind in ("native", "pythonfmu")}
+    calls = _count_python_steps(monkeypatch, built["native"])
+    for s in slaves.values():
+        s.init()
+    dt = 2e-4
+    rows = {kind: [] for kind in slaves}
+    for kind, s in slaves.items():
+        rows[kind].append(_drive(s, 0.0, 5, dt, 1))                 # first step: Python
+        state = s.fmu.getFMUstate()
+        rows[kind].append(_drive(s, 5 * dt, 5, dt, 2))              # compiled (a read between)
+        s.set({"mode[1].joint.Fs": 1.0})                            # refused: initialized
+        rows[kind].append(_drive(s, 10 * dt, 3, dt, 3))             # one through Python
+        s.fmu.setFMUstate(state)
+        s.fmu.freeFMUstate(state)
+        rows[kind].append(_drive(s, 5 * dt, 3, dt, 4))              # one through Python
+        s.set({"point.shaker.force": math.nan})
+        with pytest.raises(Exception):
+            s.fmu.doStep(currentCommunicationPoint=8 * dt, communicationStepSize=dt)
+        rows[kind].append(_drive(s, 8 * dt, 3, dt, 5))              # one through Python
+    assert np.array_equal(np.concatenate(rows["native"]), np.concatenate(rows["pythonfmu"]))
+    assert any(st == 3 and "mode[1].joint.Fs" in msg for st, msg in slaves["native"].log)
+    # Python: the first step, after the refused parameter, after the restored state, the NaN
+    # step and the one after it
+    assert len(calls) == 5
+
+
+_PLAIN_KERNEL_RUN = """
+import json, sys
+sys.path.insert(0, sys.argv[2])
+from test_fmu import Slave
+from test_fmu_binary import _drive_varied
+s = Slave(sys.argv[1], "plain")
+s.init()
+rows = _drive_varied(s, 200, 9)
+s.close()
+print(json.dumps(rows.tolist()), flush=True)
+import os
+os._exit(0)    # skip the interpreter teardown (see DEVELOPERS.md, processes that load an FMU)
+"""
+
+
+@needs_cc
+def test_native_binary_with_the_plain_python_kernel_gives_the_same_numbers(open_slave, built):
+    """Without the compiled kernel (JOINTFMU_KERNEL=python, in a fresh process) the native
+    binary steps through Python, with the same results to the bit."""
+    import json
+    import os
+    import subprocess
+    import sys
+
+    s = open_slave("native")
+    s.init()
+    ours = _drive_varied(s, 200, 9)
+    env = dict(os.environ, JOINTFMU_KERNEL="python")
+    out = subprocess.run([sys.executable, "-c", _PLAIN_KERNEL_RUN, str(built["native"].path),
+                          str(Path(__file__).parent)], env=env, capture_output=True, text=True,
+                         timeout=300, check=True)
+    plain = np.array(json.loads(out.stdout.strip().splitlines()[-1]))
+    assert np.array_equal(ours, plain)
+
+
 # ------------------------------------------------------------------------------ command line
 def test_cli_build_binary_option_and_info(tmp_path, capsys):
     from jointfmu.cli import main
