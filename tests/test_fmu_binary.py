@@ -96,6 +96,9 @@ def test_native_build_carries_the_shell_and_validates(built):
     assert lib != next(theirs.glob("*.so")).read_bytes()
     text = format_fmu_info(read_fmu_info(r.path))
     assert "FMU binary:        jointfmu's native FMI shell for linux64" in text
+    assert info["binary"]["do_step"] == "compiled"
+    assert ("doStep:            in compiled code, without Python, on linux64 hosts whose Python "
+            "has Numba") in text
 
 
 def test_pythonfmu_build_keeps_pythonfmus_binary(built):
@@ -107,7 +110,35 @@ def test_pythonfmu_build_keeps_pythonfmus_binary(built):
     with zipfile.ZipFile(r.path) as z:
         assert z.read(f"binaries/linux64/{r.model_identifier}.so") == \
             next(theirs.glob("*.so")).read_bytes()
-    assert "FMU binary:        pythonfmu's (" in format_fmu_info(read_fmu_info(r.path))
+    text = format_fmu_info(read_fmu_info(r.path))
+    assert "FMU binary:        pythonfmu's (" in text
+    assert "doStep:            through Python at every step (pythonfmu's binary)" in text
+
+
+@pytest.mark.parametrize("binary,environ,says", [
+    ({"kind": "native", "platform": "linux64", "do_step": "compiled"}, {},
+     "Here: Numba {numba} is installed: compiled"),
+    ({"kind": "native", "platform": "linux64", "do_step": "compiled"},
+     {"JOINTFMU_KERNEL": "python"}, "Here: JOINTFMU_KERNEL=python is set: through Python"),
+    ({"kind": "native", "platform": "win64", "do_step": "compiled"}, {},
+     "Here: this machine uses pythonfmu's binary (not win64): through Python"),
+    ({"kind": "native", "platform": "linux64"}, {},
+     "through Python at every step (a native binary from before doStep ran compiled"),
+    ({"kind": "pythonfmu", "platform": "linux64", "do_step": "python"}, {},
+     "through Python at every step (pythonfmu's binary)"),
+])
+def test_info_says_which_way_do_step_runs(binary, environ, says):
+    """``jointfmu info``'s doStep line from the build info and this machine (a Linux machine
+    with Numba, where the suite runs)."""
+    import importlib.metadata
+    import sys
+
+    from jointfmu.fmu.info import do_step_path
+
+    if not sys.platform.startswith("linux"):
+        pytest.skip("written for a Linux machine")
+    info = {"binary": binary, "built_with_python": ".".join(map(str, sys.version_info[:3]))}
+    assert says.format(numba=importlib.metadata.version("numba")) in do_step_path(info, environ)
 
 
 def test_unknown_binary_choice_named(tmp_path, monkeypatch):

@@ -81,6 +81,9 @@ def _cmd_build(args: argparse.Namespace) -> int:
         print(f"joint kernel: plain Python, about 250x slower ({info['reason']})")
     else:
         print(f"joint kernel: compiled and cached for this machine ({info['reason']})")
+        if r.binary.get("do_step") == "compiled":
+            print("doStep: in compiled code, without Python, on this machine (the native "
+                  "binary calls the compiled kernel)")
     return 0
 
 

@@ -231,12 +231,13 @@ def _build_info(params: ParameterSet, ident: str, core: str, native: Path | None
                 why: str = "") -> dict:
     plat = platform_folder()
     if native is not None:
-        binary = {"kind": "native", "platform": plat,
+        binary = {"kind": "native", "platform": plat, "do_step": "compiled",
                   "description": "jointfmu's native FMI 2.0 shell (native/fmi2_shell.c): get/set "
-                                 "of inputs and outputs without Python; pythonfmu's binary on "
-                                 "other platforms"}
+                                 "of inputs and outputs without Python, and doStep in the "
+                                 "compiled joint kernel where the host's Python has Numba; "
+                                 "pythonfmu's binary on other platforms"}
     else:
-        binary = {"kind": "pythonfmu", "platform": plat,
+        binary = {"kind": "pythonfmu", "platform": plat, "do_step": "python",
                   "description": "pythonfmu's binary on every platform", "reason": why}
     return {
         "set_id": params.set_id,

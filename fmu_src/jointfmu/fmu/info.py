@@ -17,6 +17,7 @@ from .slave import BUILD_INFO_FILE, PARAMETER_FILE
 __all__ = [
     "read_fmu_info",
     "format_fmu_info",
+    "do_step_path",
 ]
 
 # ---------------------------------------------------------------------------------- info
@@ -122,9 +123,10 @@ def format_fmu_info(info: Mapping) -> str:
     b = bi.get("binary") or {"kind": "pythonfmu", "reason": "built before jointfmu had its own"}
     if b.get("kind") == "native":
         lines.append(f"FMU binary:        jointfmu's native FMI shell for {b.get('platform')} "
-                     "(get/set of inputs and outputs without Python); pythonfmu's elsewhere")
+                     "(get/set of inputs and outputs, and doStep, without Python); pythonfmu's elsewhere")
     else:
         lines.append(f"FMU binary:        pythonfmu's ({b.get('reason') or 'no reason recorded'})")
+    lines.append(f"doStep:            {do_step_path(bi)}")
     lines.append("host requirements: the process must run CPython or load libpython (the FMU "
                  "binary links to no libpython and starts the interpreter if the host has not; "
                  "fmpy and other Python hosts qualify; built "
@@ -135,3 +137,43 @@ def format_fmu_info(info: Mapping) -> str:
     return "\n".join(lines)
 
 
+
+
+def do_step_path(build_info: Mapping, environ: Mapping | None = None) -> str:
+    """Which way the FMU's doStep runs, from its build info, and on a host like this one.
+
+    With jointfmu's native binary (built with the compiled step) doStep runs in the compiled
+    joint kernel without Python where the host's Python has Numba; through Python otherwise
+    (pythonfmu's binary, the plain-Python kernel, older builds), with the same results.
+    ``environ`` (default ``os.environ``) is read for ``JOINTFMU_KERNEL``; nothing is imported.
+    """
+    import importlib.metadata
+    import importlib.util
+    import sys
+
+    from .native import platform_folder
+
+    environ = os.environ if environ is None else environ
+    b = build_info.get("binary") or {}
+    if b.get("kind") != "native":
+        return ("through Python at every step (pythonfmu's binary), which calls the compiled "
+                "joint kernel where the host's Python has Numba")
+    if b.get("do_step") != "compiled":
+        return ("through Python at every step (a native binary from before doStep ran "
+                "compiled: rebuild the FMU to have it)")
+    plat = b.get("platform")
+    text = (f"in compiled code, without Python, on {plat} hosts whose Python has Numba (after "
+            "the first step of each step size); through Python otherwise, same results")
+    built = str(build_info.get("built_with_python", "")).split(".")[:2]
+    if platform_folder() != plat:
+        here = f"this machine uses pythonfmu's binary (not {plat}): through Python"
+    elif built and built != [str(x) for x in sys.version_info[:2]]:
+        here = (f"this Python is {sys.version_info[0]}.{sys.version_info[1]}, and the native "
+                f"binary refuses a host on any Python but {'.'.join(built)}")
+    elif environ.get("JOINTFMU_KERNEL", "").strip().lower() == "python":
+        here = "JOINTFMU_KERNEL=python is set: through Python"
+    elif importlib.util.find_spec("numba") is None:
+        here = "Numba is not installed: through Python"
+    else:
+        here = f"Numba {importlib.metadata.version('numba')} is installed: compiled"
+    return f"{text}. Here: {here}"
