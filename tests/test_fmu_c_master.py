@@ -3,7 +3,9 @@
 A host that is not Python: the master loads libpython (RTLD_GLOBAL), then the FMU binary, and runs
 instantiate, setup, initialization, set/get real, doStep and get/set FMU state (FMI 2.0 standard,
 sec. 2.1 and 4.2).  Its trajectory is checked against the SciPy reference
-(``jointfmu.physics.reference``), and the replay after fmi2SetFMUstate against the first run, bit for bit.
+(``jointfmu.physics.reference``), the replay after fmi2SetFMUstate against the first run, and the
+whole run against the same FMU built with pythonfmu's binary and driven by fmpy (doStep through
+Python every step, where the C host's native binary steps in compiled code), bit for bit.
 """
 from __future__ import annotations
 
@@ -22,6 +24,7 @@ import pytest
 pytest.importorskip("fmpy")
 from fmpy import read_model_description  # noqa: E402
 
+from jointfmu.fmu.build import build_fmu  # noqa: E402
 from jointfmu.physics import reference  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
 
@@ -48,16 +51,17 @@ def master(tmp_path_factory, example_fmus):
     d = tmp_path_factory.mktemp("c_master")
     exe = d / "fmi2_master"
     subprocess.run(["gcc", "-O1", "-Wall", "-o", str(exe), str(HERE / "c_master" / "fmi2_master.c"),
-                    "-ldl"], check=True, capture_output=True)
+                    "-ldl", "-lm"], check=True, capture_output=True)
     fmu = example_fmus["tray_nominal"].path
     unzipped = d / "fmu"
     with zipfile.ZipFile(fmu) as z:
         z.extractall(unzipped)
-    return exe, fmu, unzipped
+    python_path = build_fmu(NOMINAL, d / "nominal_pythonfmu.fmu", binary="pythonfmu").path
+    return exe, fmu, unzipped, python_path
 
 
 def test_c_master_matches_reference_and_replays_state(master):
-    exe, fmu, unzipped = master
+    exe, fmu, unzipped, python_path = master
     ps = load_parameter_set(NOMINAL)
     md = read_model_description(str(fmu))
     vr = {v.name: v.valueReference for v in md.modelVariables}
@@ -91,12 +95,14 @@ def test_c_master_matches_reference_and_replays_state(master):
     q, q_ref = data[:, 1], ref["q"][:, 0]
     assert np.abs(q - q_ref).max() <= 1e-3 * np.abs(q_ref).max()
     assert np.abs(data[:, 2:]).max() == 0.0              # the other modes were not excited
-    # and the C host sees what fmpy sees: the same FMU through fmpy's FMU2Slave, same inputs
+    # and the C host sees what fmpy sees with doStep through Python at every step: the FMU
+    # built with pythonfmu's binary, through fmpy's FMU2Slave, same inputs
     from fmpy import extract
     from fmpy.fmi2 import FMU2Slave
 
-    s = FMU2Slave(guid=md.guid, unzipDirectory=extract(str(fmu)), modelIdentifier=ident,
-                  instanceName="py")
+    md_py = read_model_description(str(python_path))
+    s = FMU2Slave(guid=md_py.guid, unzipDirectory=extract(str(python_path)),
+                  modelIdentifier=md_py.coSimulation.modelIdentifier, instanceName="py")
     s.instantiate()
     s.setupExperiment(startTime=0.0)
     s.enterInitializationMode()

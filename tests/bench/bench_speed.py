@@ -138,25 +138,72 @@ def ns_per_mode_step(sim, seconds: float, repeats: int) -> float:
 
 
 # ------------------------------------------------------------------------------- sections
+def _kernel_without_power():
+    """``step_planned`` of jointfmu's kernel source with the power x^(chi+2) replaced by x*x,
+    compiled here: a wrong joint, for one measurement only (what the rest of a mode-step costs;
+    see bench_kernel).  Placed beside the compiled kernel's cache folder, so a second run of the
+    benchmark loads it from Numba's cache.  None when the source no longer has that line."""
+    import hashlib
+    import importlib.util
+
+    from jointfmu.physics import compiled as C
+    from jointfmu.physics import kernel as K
+
+    source = Path(K.__file__).read_text(encoding="utf-8")
+    line = "p = math.pow(x, jc[i, E2])"
+    if source.count(line) != 1:
+        return None
+    text = C.compiled_source(source.replace(line, "p = x * x"))
+    name = "bench_nopower_" + hashlib.sha256(text.encode()).hexdigest()[:16]
+    folder = Path(C.CACHE_FILE).parent.parent / name
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / f"{name}.py"
+    if not path.exists() or path.read_text(encoding="utf-8") != text:
+        path.write_text(text, encoding="utf-8")
+    spec = importlib.util.spec_from_file_location(name, path)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod.step_planned
+
+
 def bench_kernel(params, quick):
     """Our kernel and the bare joint of :func:`bench_bare_joint` measured alternately, many
     rounds, the fastest of each: both then see the same machine (it is shared and its speed
-    drifts by 1.5x within minutes)."""
+    drifts by 1.5x within minutes).
+
+    What bounds the ratio: each is measured again with its power x^(chi+2) replaced by a
+    product (ours: :func:`_kernel_without_power`, the bare joint: ``power=False``), in the same
+    rounds.  The differences are what the power costs in each; the rest is what each does
+    besides it (ours: the exponential time step with the joint's tangent and curvature, the
+    reversal insertion, energies, memory bound; the bare joint: a stack and a backbone on a
+    prescribed path, no time step, so its evaluations do not wait on each other)."""
     from jointfmu.physics.integrate import kernel_info
 
     fast = excited(params)
     slow = excited(params, kernel="python")
     bare = bench_bare_joint(quick)
+    bare_np = bench_bare_joint(quick, power=False)
+    nopower = _kernel_without_power()
+    np_sim = excited(params)
+    np_sim.sub_steps(0.05)     # planned
+    np_args = (0.05,) + np_sim._step_args   # the simulator's own arguments of step_planned
+    if nopower is not None:
+        nopower(*np_args)      # compiled now
     mode_steps = int(fast.sub_steps(0.05).sum())
-    t_ours = t_bare = np.inf
+    t_ours = t_bare = t_ours_np = t_bare_np = np.inf
     for _ in range(15 if quick else 40):
         t_ours = min(t_ours, best(lambda: fast.step(0.05), 1))
         t_bare = min(t_bare, best(bare, 1))
+        t_bare_np = min(t_bare_np, best(bare_np, 1))
+        if nopower is not None:
+            t_ours_np = min(t_ours_np, best(lambda: nopower(*np_args), 1))
     r = {
         "kernel": fast.kernel,
         "kernel_reason": kernel_info()["reason"],
         "kernel_ns_per_mode_step": t_ours / mode_steps * 1e9,
         "bare_joint_ns": t_bare / bare.evaluations * 1e9,
+        "kernel_without_power_ns": t_ours_np / mode_steps * 1e9,
+        "bare_joint_without_power_ns": t_bare_np / bare_np.evaluations * 1e9,
         "fallback_ns_per_mode_step": ns_per_mode_step(slow, 0.002 if quick else 0.01, 3),
         "steps_per_period": fast.steps_per_period,
     }
@@ -321,6 +368,25 @@ def _loop(s, ivr, ovr, n, dt=1e-3, amp=None, style="lists"):
     return run
 
 
+#: Communication steps [s] at which the cost per step is measured (fixed cost + joint work).
+COMM_STEPS = (1e-4, 2e-4, 5e-4, 1e-3, 1e-2)
+#: The line of fixed_and_per_mode_step is fitted up to this step: the drive (a 35 Hz sine,
+#: held over each step) is then still a smooth sine to the joints; held over 10 ms it is a
+#: staircase that rings the higher modes, another regime with its own cost per mode-step.
+FIT_UP_TO = 1e-3
+
+
+def fixed_and_per_mode_step(by_dt: dict) -> tuple[float, float]:
+    """Least-squares line through (mode-steps per communication step, us per step) for the
+    steps up to FIT_UP_TO: the cost of a communication step that does not grow with the joint
+    work (us) and the cost per mode-step (ns), in the FMU as the host drives it."""
+    pts = [(v["mode_steps"], v["us_per_step"]) for dt, v in by_dt.items()
+           if float(dt) <= FIT_UP_TO * (1 + 1e-9)]
+    x, y = np.array(pts, dtype=float).T
+    slope, fixed = np.polyfit(x, y, 1)
+    return float(fixed), float(slope * 1e3)
+
+
 #: Host styles of driving the FMU through FMU2Slave (see _loop).
 STYLES = {"lists": "setReal/getReal (lists)",
           "mixed": "as simulate_fmu (arrays in, lists out)",
@@ -371,6 +437,11 @@ def bench_fmu(params, work: Path, quick):
         for style in STYLES:
             loops[f"{name}_{style}"] = _loop(s, iv, ov, n, amp=[drive] * ni, style=style)
             loops[f"{name}_{style}_empty"] = _loop(e, e_in[:ni], e_out[:no], n, style=style)
+    # how the cost grows with the communication step (typical case, arrays)
+    for dt in COMM_STEPS:
+        if dt != 1e-3:
+            loops[f"typical_arrays_dt_{dt:g}"] = _loop(s, typ_in, typ_out, n, dt=dt,
+                                                       amp=[drive], style="arrays")
     fastest = dict.fromkeys(loops, np.inf)
     for _ in range(rep):
         for key, loop in loops.items():
@@ -382,6 +453,12 @@ def bench_fmu(params, work: Path, quick):
             res[key] = {"us_per_step": us[key], "realtime_factor": 1e3 / us[key],
                         "empty_us_per_step": us[key + "_empty"]}
     res["doStep_only_us"] = us["doStep_only_us"]
+    sim_plan = excited(params)
+    res["arrays_by_dt"] = {
+        f"{dt:g}": {"us_per_step": us["typical_arrays"] if dt == 1e-3
+                    else us[f"typical_arrays_dt_{dt:g}"],
+                    "mode_steps": int(sim_plan.sub_steps(dt).sum())} for dt in COMM_STEPS}
+    res["empty_fmu_path"] = str(empty)
     res["empty_doStep_only_us"] = us["empty_doStep_only_us"]
     # the core alone, per communication step, fed as the slave feeds it
     sim = excited(params)
@@ -407,6 +484,80 @@ def bench_fmu(params, work: Path, quick):
     e.terminate()
     e.freeInstance()
     return res, ours
+
+
+def _libpython():
+    import sysconfig
+
+    if not sysconfig.get_config_var("Py_ENABLE_SHARED"):
+        return None
+    lib = Path(sysconfig.get_config_var("LIBDIR")) / sysconfig.get_config_var("LDLIBRARY")
+    return lib if lib.is_file() else None
+
+
+def bench_c_host(params, fmu_path: Path, empty_fmu: Path, work: Path, quick):
+    """The FMU driven by a C host: the project's C master (tests/c_master/fmi2_master.c) in its
+    timing mode, a fresh process per round, alternating with the machine's two anchors (an
+    empty pythonfmu doStep through fmpy, the bare joint), the fastest of each counts.  The same
+    problem as the fmpy loops (point force in; x, v, a of the tip out), at the communication
+    steps of COMM_STEPS.  None (and why) where it cannot run (no C compiler, no shared
+    libpython, not Linux)."""
+    import shutil
+    import site
+    import zipfile
+
+    from fmpy import read_model_description
+
+    cc = shutil.which(os.environ.get("CC", "cc")) or shutil.which("gcc")
+    libpython = _libpython()
+    if not sys.platform.startswith("linux") or cc is None or libpython is None:
+        return {"skipped": "needs Linux, a C compiler and a shared libpython"}
+    exe = work / "fmi2_master"
+    subprocess.run([cc, "-O2", "-o", str(exe), str(HERE.parent / "c_master" / "fmi2_master.c"),
+                    "-ldl", "-lm"], check=True, capture_output=True)
+    md = read_model_description(str(fmu_path))
+    vr = {v.name: v.valueReference for v in md.modelVariables}
+    unzipped = work / "c_host_fmu"
+    with zipfile.ZipFile(fmu_path) as z:
+        z.extractall(unzipped)
+    ident = md.coSimulation.modelIdentifier
+    drive = 4.0 * params.modes[0].joint.Fs
+    n = 500 if quick else 1000
+    cmd = [str(exe), "--time", str(libpython),
+           str(unzipped / "binaries" / "linux64" / f"{ident}.so"), (unzipped / "resources").as_uri(),
+           md.guid, ",".join(repr(dt) for dt in COMM_STEPS), str(n), "3" if quick else "5",
+           str(vr["point.drive.force"]), repr(drive), "35.0",
+           ",".join(str(vr[f"point.tip.{k}"]) for k in ("x", "v", "a"))]
+    env = {k: v for k, v in os.environ.items() if not k.startswith("PYTHON")}
+    env["PYTHONHOME"] = sys.base_prefix
+    env["PYTHONPATH"] = os.pathsep.join(site.getsitepackages())
+    e, _ = _open_fmu(empty_fmu)
+    empty_loop = _loop(e, None, None, 200)
+    bare = bench_bare_joint(quick)
+    fastest = {dt: np.inf for dt in COMM_STEPS}
+    t_empty = t_bare = np.inf
+    for _ in range(3 if quick else 6):
+        out = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=600)
+        if out.returncode != 0:
+            return {"skipped": f"the C master failed ({out.returncode}): {out.stderr[-500:]}"}
+        for line in out.stdout.splitlines():
+            if line.startswith("T "):
+                _, dt, sec = line.split()
+                key = min(COMM_STEPS, key=lambda d: abs(d - float(dt)))
+                fastest[key] = min(fastest[key], float(sec))
+        t_empty = min(t_empty, best(empty_loop, 1) / 200)
+        t_bare = min(t_bare, best(bare, 1) / bare.evaluations)
+    e.terminate()
+    e.freeInstance()
+    sim = excited(params)
+    by_dt = {f"{dt:g}": {"us_per_step": fastest[dt] * 1e6,
+                         "mode_steps": int(sim.sub_steps(dt).sum())} for dt in COMM_STEPS}
+    fixed_us, per_mode_step_ns = fixed_and_per_mode_step(by_dt)
+    us_1ms = by_dt["0.001"]["us_per_step"]
+    return {"by_dt": by_dt, "us_per_step": us_1ms, "realtime_factor": 1e3 / us_1ms,
+            "fixed_us_per_step": fixed_us, "ns_per_mode_step_in_fmu": per_mode_step_ns,
+            "outside_joints_share": fixed_us / us_1ms,
+            "empty_doStep_us": t_empty * 1e6, "bare_joint_ns": t_bare * 1e9}
 
 
 _COLD = '''
@@ -571,13 +722,14 @@ TARGET_KERNEL_NS = 30.0
 TARGET_REALTIME_FACTOR = 100.0
 
 
-def _bare_joint_kernel():
+def _bare_joint_kernel(power=True):
     """A bare exact Iwan joint force, compiled: N joints, each on its own prescribed decaying
     displacement path, force from the backbone and a reversal stack (Masing's rules with
     wiping-out, one power per evaluation, as the exact model needs for general chi; Segalman
     2005, the backbone F = Kt x - R x^(chi+2)/((chi+1)(chi+2)) below phimax).  No time
     integration, no energies, no memory bound: the floor a joint-force evaluation costs on this
-    machine, written here independently of jointfmu's kernel."""
+    machine, written here independently of jointfmu's kernel.  ``power=False``: x^(chi+2)
+    replaced by x*x (a wrong joint: what the rest costs; a constant when compiled)."""
     import numba
 
     @numba.njit(cache=False, error_model="numpy")
@@ -609,7 +761,10 @@ def _bare_joint_kernel():
                     ur, fr, c = stk_u[j, depth[j] - 1], stk_f[j, depth[j] - 1], 2.0
                 du = uk - ur
                 x = abs(du) / c
-                fbb = kt[j] * x - cf[j] * x ** e2[j] if x < phimax[j] else fs[j]
+                if x < phimax[j]:
+                    fbb = kt[j] * x - cf[j] * (x ** e2[j] if power else x * x)
+                else:
+                    fbb = fs[j]
                 f = fr + (c if du >= 0.0 else -c) * fbb
                 u_prev[j] = uk
                 f_prev[j] = f
@@ -618,11 +773,11 @@ def _bare_joint_kernel():
     return run
 
 
-def bench_bare_joint(quick):
+def bench_bare_joint(quick, power=True):
     """A call that runs :func:`_bare_joint_kernel` on 10 joints, 40 points per period,
     amplitudes decaying from 0.9 to 0.05 phimax (micro-slip: the power is taken every time);
     its attribute ``evaluations`` is the number of joint evaluations per call."""
-    run = _bare_joint_kernel()
+    run = _bare_joint_kernel(power)
     n_j, n_steps = 10, 2000
     chi = np.linspace(-0.35, -0.62, n_j)
     kt, fs, beta = np.full(n_j, 1.0), np.full(n_j, 1.0), 0.1
@@ -664,6 +819,15 @@ def main(argv=None) -> int:
           f"{TARGET_KERNEL_NS * kernel_factor:.1f} ns here; ours / bare = "
           f"{k['kernel_ns_per_mode_step'] / bare_ns:.2f} (target "
           f"{TARGET_KERNEL_NS / ISSUE_BARE_JOINT_NS:.2f})")
+    pw_ours = k["kernel_ns_per_mode_step"] - k["kernel_without_power_ns"]
+    pw_bare = bare_ns - k["bare_joint_without_power_ns"]
+    print(f"  what bounds the ratio: with the power x^(chi+2) replaced by a product, ours "
+          f"{k['kernel_without_power_ns']:.1f} ns, the bare joint "
+          f"{k['bare_joint_without_power_ns']:.1f} ns; the power costs ours {pw_ours:.1f} ns "
+          f"and the bare joint {pw_bare:.1f} ns.  Even with a free power ours would be "
+          f"{k['kernel_without_power_ns'] / bare_ns:.2f}x the bare joint: the time step "
+          f"(exponential update, tangent and curvature, reversal insertion, energies) costs "
+          f"more than the whole bare joint besides its power")
     print(f"  plain-Python fallback: {k['fallback_ns_per_mode_step']:.0f} ns per mode-step "
           f"({k['compiled_over_python']:.0f}x slower)")
 
@@ -705,6 +869,12 @@ def main(argv=None) -> int:
                   f"{c['realtime_factor']:10.0f}  {c['realtime_factor_scaled']:8.0f}  "
                   f"{c['empty_us_per_step']:16.1f}  "
                   f"{c['us_per_step'] - c['empty_us_per_step']:17.1f}")
+    fixed, per_ms = fixed_and_per_mode_step(fm["arrays_by_dt"])
+    print("  typical, arrays, by communication step: " + "  ".join(
+        f"{dt} s: {v['us_per_step']:.1f} us ({v['mode_steps']} mode-steps)"
+        for dt, v in fm["arrays_by_dt"].items())
+        + f"; fit: {fixed:.1f} us per step + {per_ms:.1f} ns per mode-step")
+    fm["arrays_fixed_us_per_step"] = fixed
     kern_us = k["kernel_ns_per_mode_step"] * fm["mode_steps_per_step"] * 1e-3
     print(f"  core alone (inputs, step, outputs): {fm['core_us_per_step']:.1f} us per step, of which "
           f"the kernel about {kern_us:.1f} us")
@@ -713,6 +883,27 @@ def main(argv=None) -> int:
                                                              for k_, v in si.items()))
     print(f"  memory over {fm['memory_fmu']['steps']} FMU steps, RSS MB: "
           f"{fm['memory_fmu']['rss_mb']}")
+
+    ch = bench_c_host(params, fmu_path, Path(fm["empty_fmu_path"]), work, quick)
+    if "skipped" in ch:
+        print(f"\nC host: skipped ({ch['skipped']})")
+    else:
+        ch_fmu_factor = ch["empty_doStep_us"] / ISSUE_EMPTY_DOSTEP_US
+        ch_kernel_factor = ch["bare_joint_ns"] / ISSUE_BARE_JOINT_NS
+        ch["realtime_factor_scaled"] = ch["realtime_factor"] * ch_fmu_factor
+        ch["realtime_factor_scaled_by_bare_joint"] = ch["realtime_factor"] * ch_kernel_factor
+        ch["machine_factor_fmu"], ch["machine_factor_kernel"] = ch_fmu_factor, ch_kernel_factor
+        print("\nFMU through a C host (tests/c_master/fmi2_master.c --time: fmi2SetReal of the "
+              "force, fmi2DoStep, fmi2GetReal of x, v, a), fresh process per round")
+        print("  " + "  ".join(f"{dt} s: {v['us_per_step']:.2f} us per step ({v['mode_steps']} "
+                               f"mode-steps)" for dt, v in ch["by_dt"].items()))
+        print(f"  1 ms: {ch['realtime_factor']:.0f}x real time, scaled "
+              f"{ch['realtime_factor_scaled']:.0f}x (anchors measured between its rounds: empty "
+              f"doStep {ch['empty_doStep_us']:.2f} us, bare joint {ch['bare_joint_ns']:.1f} ns; "
+              f"scaled by the bare joint instead: {ch['realtime_factor_scaled_by_bare_joint']:.0f}x)")
+        print(f"  fit over the communication steps: {ch['fixed_us_per_step']:.2f} us per step "
+              f"+ {ch['ns_per_mode_step_in_fmu']:.1f} ns per mode-step; outside the joints at 1 ms:"
+              f" {100 * ch['outside_joints_share']:.0f} % of the step")
 
     mem = bench_memory_core(params, quick)
     print(f"\nmemory over {mem['internal_steps']:.0e} internal steps of the core (max stack depth "
@@ -746,14 +937,24 @@ def main(argv=None) -> int:
     summary = {
         "kernel": k["kernel"],
         "kernel_ns_per_mode_step": round(k["kernel_ns_per_mode_step"], 2),
+        "kernel_over_bare_joint": round(k["kernel_ns_per_mode_step"] / bare_ns, 3),
+        "kernel_without_power_ns": round(k["kernel_without_power_ns"], 2),
+        "bare_joint_without_power_ns": round(k["bare_joint_without_power_ns"], 2),
         "fallback_ns_per_mode_step": round(k["fallback_ns_per_mode_step"], 1),
         "fmu_binary": fm["binary"],
-        "fmu_realtime_factor": round(typ["realtime_factor"], 1),
+        # fmpy FMU2Slave with fmi2SetReal/fmi2GetReal on arrays (the issue 13 target); the
+        # same with setReal/getReal on lists in *_lists
+        "fmu_realtime_factor": round(typ_arrays["realtime_factor"], 1),
         "fmu_realtime_factor_arrays": round(typ_arrays["realtime_factor"], 1),
+        "fmu_realtime_factor_lists": round(typ["realtime_factor"], 1),
         "fmu_realtime_factor_mixed": round(fm["typical_mixed"]["realtime_factor"], 1),
         "fmu_realtime_factor_all_variables": round(fm["all_lists"]["realtime_factor"], 1),
-        "fmu_us_per_step": round(typ["us_per_step"], 2),
-        "empty_fmu_us_per_step": round(typ["empty_us_per_step"], 2),
+        "fmu_us_per_step": round(typ_arrays["us_per_step"], 2),
+        "fmu_us_per_step_lists": round(typ["us_per_step"], 2),
+        "fmu_us_per_step_by_comm_step": {dt: round(v["us_per_step"], 2)
+                                         for dt, v in fm["arrays_by_dt"].items()},
+        "fmu_fixed_us_per_step": round(fm["arrays_fixed_us_per_step"], 2),
+        "empty_fmu_us_per_step": round(typ_arrays["empty_us_per_step"], 2),
         "core_us_per_step": round(fm["core_us_per_step"], 2),
         "speedup_vs_reference": round(ref["speedup_vs_reference"], 1),
         "reference_rtol_compared": ref["chosen_rtol"],
@@ -773,13 +974,30 @@ def main(argv=None) -> int:
         "machine_factor_kernel": round(kernel_factor, 3),
         "machine_factor_fmu": round(fmu_factor, 3),
         "kernel_ns_per_mode_step_scaled": round(k["kernel_ns_per_mode_step"] / kernel_factor, 2),
-        "fmu_realtime_factor_scaled": round(typ["realtime_factor_scaled"], 1),
+        "fmu_realtime_factor_scaled": round(typ_arrays["realtime_factor_scaled"], 1),
         "fmu_realtime_factor_arrays_scaled": round(typ_arrays["realtime_factor_scaled"], 1),
+        "fmu_realtime_factor_lists_scaled": round(typ["realtime_factor_scaled"], 1),
         "fmu_realtime_factor_mixed_scaled": round(fm["typical_mixed"]["realtime_factor_scaled"], 1),
         "cold_start_s_scaled": round(cold["warm_cache"]["instantiate_to_first_step_s"]
                                      / fmu_factor, 3),
         "quick": quick,
     }
+    if "skipped" in ch:
+        summary["c_host_skipped"] = ch["skipped"]
+    else:
+        summary.update({
+            "fmu_realtime_factor_c_host": round(ch["realtime_factor"], 1),
+            "fmu_realtime_factor_c_host_scaled": round(ch["realtime_factor_scaled"], 1),
+            "fmu_realtime_factor_c_host_scaled_by_bare_joint":
+                round(ch["realtime_factor_scaled_by_bare_joint"], 1),
+            "c_host_us_per_step_by_comm_step": {dt: round(v["us_per_step"], 3)
+                                                for dt, v in ch["by_dt"].items()},
+            "c_host_fixed_us_per_step": round(ch["fixed_us_per_step"], 3),
+            "c_host_ns_per_mode_step": round(ch["ns_per_mode_step_in_fmu"], 2),
+            "c_host_outside_joints_share": round(ch["outside_joints_share"], 3),
+            "c_host_machine_factor_fmu": round(ch["machine_factor_fmu"], 3),
+            "c_host_machine_factor_kernel": round(ch["machine_factor_kernel"], 3),
+        })
     print(json.dumps(summary))
     return 0
 
