@@ -5,8 +5,10 @@ Run::
     .venv/bin/python tests/bench/bench_speed.py [--quick]
 
 It prints readable tables, then, as its LAST line, one JSON object with (at least)
-``kernel_ns_per_mode_step``, ``fmu_realtime_factor``, ``speedup_vs_reference``,
-``cold_start_s``, ``fallback_ns_per_mode_step``.  Nothing is asserted: this is a benchmark, not a
+``kernel_ns_per_mode_step``, ``fmu_realtime_factor`` (fmpy's FMU2Slave, fmi2SetReal/fmi2GetReal
+on arrays; ``fmu_realtime_factor_lists`` with lists), ``fmu_realtime_factor_c_host``,
+``speedup_vs_reference``, ``cold_start_s``, ``fallback_ns_per_mode_step``, each target also
+``*_scaled``.  Nothing is asserted: this is a benchmark, not a
 test (timing assertions do not belong in tests).  Every timing is the best of several repeats (the
 least disturbed by other processes on the machine); the machine is shared, so compare ratios
 measured in the same run rather than absolute numbers across runs.
@@ -21,7 +23,9 @@ What is measured
 kernel
     Core stepping, ns per mode and internal step, default ``steps_per_period`` (the
     ModalSimulator default), while the joints ring down with reversals (long ``step`` calls so
-    Python overhead does not count).  Also for the plain-Python kernel (the fallback).
+    Python overhead does not count), beside a bare exact joint force; both also with the power
+    x^(chi+2) replaced by a product, which shows what bounds their ratio.  Also for the
+    plain-Python kernel (the fallback).
 scaling
     ns per mode-step against the number of modes, against ``steps_per_period``, and along a long
     ring-down as the reversal stack deepens (cost per step should not grow with depth).
@@ -31,6 +35,13 @@ fmu
     variables" (every input, every output).  The same loops against an empty pythonfmu slave with
     the same number of variables give the floor of the Python FMU machinery, and the core alone
     (``set_inputs`` + ``step``) gives what the simulator itself costs per communication step.
+    The typical case with arrays also at the communication steps of ``COMM_STEPS``: a line
+    through them gives the fixed cost per step and the cost per mode-step.
+c host
+    The same typical case driven by a C program (tests/c_master/fmi2_master.c in its timing
+    mode; it loads libpython itself, no host interpreter in the loop), at the communication
+    steps of ``COMM_STEPS``, a fresh process per round, alternating with the two machine
+    anchors below.  The fitted fixed cost per step is the part of the step outside the joints.
 cold start
     A fresh process: extract, instantiate, initialize, first ``doStep``; once with the compiled
     kernel in its cache (``$JOINTFMU_CACHE_DIR``, warm) and once with an empty cache (cold: Numba

@@ -82,6 +82,9 @@ def _cmd_build(args: argparse.Namespace) -> int:
     else:
         print(f"joint kernel: compiled and cached for this machine ({info['reason']})")
         if r.binary.get("do_step") == "compiled":
+            from ..physics.compiled import c_step_address
+
+            c_step_address()    # its C entry too, compiled once for this machine
             print("doStep: in compiled code, without Python, on this machine (the native "
                   "binary calls the compiled kernel)")
     return 0

@@ -51,7 +51,7 @@ from . import kernel as _K
 
 __all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "step_all", "step_planned", "undo",
            "refresh", "CACHE_FILE", "cache_dir_candidates", "bind", "compile_source", "jit_footer",
-           "c_step_entry"]
+           "c_step_entry", "c_step_address"]
 
 NAME = "numba"
 
@@ -320,13 +320,19 @@ def c_step_entry(args):
                              f"{dtype} array")
         pointers.append(a.ctypes.data)
         dims.extend(int(x) for x in a.shape)
+    return c_step_address(), tuple(pointers), tuple(dims)
+
+
+#: The compiled C entry, made at the first call of c_step_address.
+_C_STEP: list = []
+
+
+def c_step_address() -> int:
+    """Address of the C entry of ``step_planned`` (see :func:`c_step_entry`), compiled now
+    (about 2 s, once per machine: ``jointfmu build`` does it) or loaded from the cache."""
     if not _C_STEP:
         _C_STEP.append(_mod.make_c_step())
-    return _C_STEP[0].address, tuple(pointers), tuple(dims)
-
-
-#: The compiled C entry, made at the first call of c_step_entry.
-_C_STEP: list = []
+    return _C_STEP[0].address
 
 
 def bind(func, args):
