@@ -154,8 +154,8 @@ def c_step(sim):
     return lambda dt: fn(p, d, dt)
 
 
-#: 20 step sizes in turn: more than the plan slots, so that the slots are also freed and reused.
-STEP_SIZES = [2e-4 * 1.17 ** k for k in range(20)]
+#: More step sizes than the plan slots, so that the oldest plans also make way.
+STEP_SIZES = [2e-4 * 1.03 ** k for k in range(PLAN_SLOTS + 16)]
 
 
 def test_c_entry_equals_the_python_path_bit_for_bit():
@@ -170,8 +170,8 @@ def test_c_entry_equals_the_python_path_bit_for_bit():
     pos = sims[0].input_index("point_forces", 0)
     codes = []
     for k, x in enumerate(force_history(700, 1e-3)):
-        # mostly ten step sizes in turn, now and then one of the ten others
-        dt = STEP_SIZES[(k * 7) % 10] if k % 30 else STEP_SIZES[10 + (k // 30) % 10]
+        # mostly ten step sizes in turn, every third step one of the others
+        dt = STEP_SIZES[(k * 7) % 10] if k % 3 else STEP_SIZES[10 + (k // 3) % (len(STEP_SIZES) - 10)]
         for s in sims:
             s.set_input_value(pos, float(x))
         assert sims[0].step(dt) == (True, "") and sims[1].step(dt) == (True, "")
@@ -184,9 +184,9 @@ def test_c_entry_equals_the_python_path_bit_for_bit():
             assert np.array_equal(s.output_values(), ref), (k, dt)
     assert sims[0].get_state() == sims[1].get_state() == sims[2].get_state()
     assert sims[2].time == sims[0].time
-    # the C entry did most steps; the others were step sizes it had no plan for
-    assert codes.count(K.STEP_DONE) > 0.8 * len(codes)
-    assert K.STEP_NO_PLAN in codes
+    # the C entry did most steps; the others were step sizes it had no plan (any more) for
+    assert codes.count(K.STEP_DONE) > 0.5 * len(codes)
+    assert codes.count(K.STEP_NO_PLAN) > len(STEP_SIZES)      # some were planned again
 
 
 @pytest.mark.parametrize("where,value,says", [

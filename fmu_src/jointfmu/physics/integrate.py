@@ -55,8 +55,11 @@ DEFAULT_MERGE_TOL = 1e-10
 DEFAULT_STACK_CAPACITY = 4096
 #: Largest magnitude accepted for an input (keeps every intermediate value finite).
 MAX_INPUT = K.MAX_INPUT
-#: Step sizes whose plan (sub-step counts and coefficients) is kept at once.
-PLAN_SLOTS = 16
+#: Step sizes whose plan (sub-step counts and coefficients) is kept at once.  A host that
+#: computes each step as the difference of two communication points (fmpy's simulate_fmu:
+#: t_(n+1) - t_n) sends step sizes that differ in their last bits: about 20 distinct ones over
+#: 10^6 steps of 0.1 or 1 ms (counted here), each planned once.
+PLAN_SLOTS = 64
 
 #: 3: the joint state ``js`` also caches the branch root, the closure point and the power
 #: x^(chi+2) at the joint's position (_kernel.NJS = 20).
@@ -211,6 +214,7 @@ class ModalSimulator:
         # step size planned before needs no Python (step_planned finds its slot)
         self._plans: dict[float, tuple[np.ndarray, np.ndarray]] = {}
         self._plan_dt = np.full(PLAN_SLOTS, np.nan)
+        self._oldest_plan = 0     # the slot a new plan takes once all are in use
         self._plan_nsub = np.zeros((PLAN_SLOTS, n), dtype=np.int64)
         self._plan_coef = np.zeros((PLAN_SLOTS, n, 11))
         self._st = np.zeros((n, 6))
@@ -458,7 +462,7 @@ class ModalSimulator:
         """Per-mode sub-step counts and step coefficients for a caller's step ``dt``.
 
         A step size ``0 < dt < inf`` is kept in a slot of the plan arrays, where the kernel's
-        ``step_planned`` finds it; when every slot is taken they are all freed first.
+        ``step_planned`` finds it; when every slot is taken, the oldest plan makes way.
         """
         plan = self._plans.get(dt)
         if plan is None:
@@ -468,9 +472,10 @@ class ModalSimulator:
                 return n_sub, coef
             slot = len(self._plans)
             if slot == PLAN_SLOTS:
-                self._plans.clear()
-                self._plan_dt[:] = np.nan
-                slot = 0
+                slot = self._oldest_plan
+                self._oldest_plan = (slot + 1) % PLAN_SLOTS
+                del self._plans[float(self._plan_dt[slot])]
+                self._plan_dt[slot] = np.nan      # free while it is rewritten
             self._plan_nsub[slot] = n_sub
             self._plan_coef[slot] = coef
             self._plan_dt[slot] = dt     # last: the slot is whole before the kernel can match it
