@@ -27,6 +27,16 @@ stays off for that reason; ``error_model="numpy"`` only drops the ZeroDivisionEr
 kernel divides by nothing that can be zero; a non-finite result is caught by the caller anyway).
 Every top-level function of ``_kernel.py`` is compiled, so a new helper there needs no change here.
 
+The C entry
+-----------
+The generated module also defines ``c_step(pointers, dims, dt)``, ``step_planned`` behind a C
+signature (``int64_t (void **, const int64_t *, double)``): it rebuilds the simulator's arrays
+from their data pointers and shapes (:data:`C_STEP_ARRAYS`) and calls the compiled
+``step_planned``, the same machine code Python calls.  :func:`c_step_address` makes it a Numba
+``cfunc`` (cached like the rest) when the FMU's native binary first asks for it
+(:func:`c_step_entry`, through ``ModalSimulator.c_step_entry``), so that doStep runs without
+Python.
+
 Environment
 -----------
 ``JOINTFMU_KERNEL=python``

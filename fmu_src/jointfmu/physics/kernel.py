@@ -2,7 +2,9 @@
 
 Everything here is plain scalar Python on NumPy arrays, written so that a compiler (Numba) can take
 it unchanged: no Python objects, no allocation inside the loops.  ``integrate.py`` owns the arrays
-and calls :func:`advance`; ``iwan.py`` calls :func:`joint_move` for a single joint.
+and calls :func:`step_planned` (a whole step: :func:`step_all`, around :func:`advance`), which the
+FMU's native binary also calls, compiled, without Python; ``iwan.py`` calls :func:`joint_move` for a
+single joint.
 
 Joint model
 -----------
