@@ -171,9 +171,11 @@ def _kernel_without_power():
     path = folder / f"{name}.py"
     if not path.exists() or path.read_text(encoding="utf-8") != text:
         path.write_text(text, encoding="utf-8")
-    spec = importlib.util.spec_from_file_location(name, path)
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
+    mod = sys.modules.get(name)
+    if mod is None:   # registered before it runs: Numba's cache finds the module by name
+        spec = importlib.util.spec_from_file_location(name, path)
+        mod = sys.modules[name] = importlib.util.module_from_spec(spec)
+        spec.loader.exec_module(mod)
     return mod.step_planned
 
 
