@@ -120,6 +120,8 @@ def test_pythonfmu_build_keeps_pythonfmus_binary(built):
      "Here: Numba {numba} is installed: compiled"),
     ({"kind": "native", "platform": "linux64", "do_step": "compiled"},
      {"JOINTFMU_KERNEL": "python"}, "Here: JOINTFMU_KERNEL=python is set: through Python"),
+    ({"kind": "native", "platform": "linux64", "do_step": "compiled"},
+     {"JOINTFMU_DOSTEP": "python"}, "Here: JOINTFMU_DOSTEP=python is set: through Python"),
     ({"kind": "native", "platform": "win64", "do_step": "compiled"}, {},
      "Here: this machine uses pythonfmu's binary (not win64): through Python"),
     ({"kind": "native", "platform": "linux64"}, {},
@@ -393,6 +395,24 @@ def test_python_calls_between_steps_send_the_next_step_through_python(open_slave
     # Python: the first step, after the refused parameter, after the restored state, the NaN
     # step and the one after it
     assert len(calls) == 5
+
+
+@needs_cc
+def test_dostep_env_keeps_do_step_in_python(open_slave, built, monkeypatch):
+    """JOINTFMU_DOSTEP=python at initialization: every doStep through Python, the same numbers
+    as with the compiled doStep."""
+    fast = open_slave("native", "fast")
+    calls = _count_python_steps(monkeypatch, built["native"])
+    fast.init()
+    monkeypatch.setenv("JOINTFMU_DOSTEP", "python")
+    slow = open_slave("native", "slow")
+    slow.init()
+    monkeypatch.delenv("JOINTFMU_DOSTEP")
+    a = _drive_varied(fast, 300, 4)
+    n_fast = len(calls)
+    b = _drive_varied(slow, 300, 4)
+    assert np.array_equal(a, b)
+    assert n_fast == len(STEP_SIZES) and len(calls) - n_fast == 300
 
 
 _PLAIN_KERNEL_RUN = """

@@ -419,6 +419,13 @@ def bench_fmu(params, work: Path, quick):
     build_s = time.perf_counter() - t
 
     s, md = _open_fmu(ours)
+    # a second instance whose doStep goes through Python every step (the path before the
+    # compiled doStep, kept by JOINTFMU_DOSTEP=python at initialization), for comparison
+    os.environ["JOINTFMU_DOSTEP"] = "python"
+    try:
+        sp, _ = _open_fmu(ours)
+    finally:
+        del os.environ["JOINTFMU_DOSTEP"]
     vars_ = {v.name: v for v in md.modelVariables}
     ins = [v.valueReference for v in md.modelVariables if v.causality == "input"]
     outs = [v.valueReference for v in md.modelVariables if v.causality == "output"]
@@ -450,6 +457,8 @@ def bench_fmu(params, work: Path, quick):
         for style in STYLES:
             loops[f"{name}_{style}"] = _loop(s, iv, ov, n, amp=[drive] * ni, style=style)
             loops[f"{name}_{style}_empty"] = _loop(e, e_in[:ni], e_out[:no], n, style=style)
+            loops[f"{name}_{style}_python_dostep"] = _loop(sp, iv, ov, n, amp=[drive] * ni,
+                                                           style=style)
     # how the cost grows with the communication step (typical case, arrays)
     for dt in COMM_STEPS:
         if dt != 1e-3:
@@ -464,7 +473,8 @@ def bench_fmu(params, work: Path, quick):
         for style in STYLES:
             key = f"{name}_{style}"
             res[key] = {"us_per_step": us[key], "realtime_factor": 1e3 / us[key],
-                        "empty_us_per_step": us[key + "_empty"]}
+                        "empty_us_per_step": us[key + "_empty"],
+                        "python_dostep_us_per_step": us[key + "_python_dostep"]}
     res["doStep_only_us"] = us["doStep_only_us"]
     sim_plan = excited(params)
     res["arrays_by_dt"] = {
@@ -492,10 +502,9 @@ def bench_fmu(params, work: Path, quick):
         loop()
         rss.append(rss_mb())
     res["memory_fmu"] = {"steps": m_steps, "rss_mb": [round(x, 1) for x in rss]}
-    s.terminate()
-    s.freeInstance()
-    e.terminate()
-    e.freeInstance()
+    for fmu in (s, sp, e):
+        fmu.terminate()
+        fmu.freeInstance()
     return res, ours
 
 
@@ -873,15 +882,16 @@ def main(argv=None) -> int:
           f"{TARGET_REALTIME_FACTOR:g}x real time there (<= {1e3 / TARGET_REALTIME_FACTOR:g} us per "
           f"step) is <= {us_target_here:.1f} us per step here")
     print("  case     host calls                              ours [us/step]  realtime x  "
-          "scaled x  empty slave [us]  ours - empty [us]")
+          "scaled x  empty slave [us]  doStep via Python [us]")
     for name in ("typical", "all"):
         for style, text in STYLES.items():
             c = fm[f"{name}_{style}"]
             c["realtime_factor_scaled"] = c["realtime_factor"] * fmu_factor
             print(f"  {name:8s} {text:40s} {c['us_per_step']:14.1f}  "
                   f"{c['realtime_factor']:10.0f}  {c['realtime_factor_scaled']:8.0f}  "
-                  f"{c['empty_us_per_step']:16.1f}  "
-                  f"{c['us_per_step'] - c['empty_us_per_step']:17.1f}")
+                  f"{c['empty_us_per_step']:16.1f}  {c['python_dostep_us_per_step']:22.1f}")
+    print("  (doStep via Python: the same FMU with JOINTFMU_DOSTEP=python, the path before "
+          "doStep ran compiled)")
     fixed, per_ms = fixed_and_per_mode_step(fm["arrays_by_dt"])
     print("  typical, arrays, by communication step: " + "  ".join(
         f"{dt} s: {v['us_per_step']:.1f} us ({v['mode_steps']} mode-steps)"
@@ -965,6 +975,7 @@ def main(argv=None) -> int:
         "fmu_realtime_factor_all_variables": round(fm["all_lists"]["realtime_factor"], 1),
         "fmu_us_per_step": round(typ_arrays["us_per_step"], 2),
         "fmu_us_per_step_lists": round(typ["us_per_step"], 2),
+        "fmu_us_per_step_python_dostep": round(typ_arrays["python_dostep_us_per_step"], 2),
         "fmu_us_per_step_by_comm_step": {dt: round(v["us_per_step"], 2)
                                          for dt, v in fm["arrays_by_dt"].items()},
         "fmu_fixed_us_per_step": round(fm["arrays_fixed_us_per_step"], 2),

@@ -145,7 +145,8 @@ def do_step_path(build_info: Mapping, environ: Mapping | None = None) -> str:
     With jointfmu's native binary (built with the compiled step) doStep runs in the compiled
     joint kernel without Python where the host's Python has Numba; through Python otherwise
     (pythonfmu's binary, the plain-Python kernel, older builds), with the same results.
-    ``environ`` (default ``os.environ``) is read for ``JOINTFMU_KERNEL``; nothing is imported.
+    ``environ`` (default ``os.environ``) is read for ``JOINTFMU_KERNEL`` and ``JOINTFMU_DOSTEP``;
+    nothing is imported.
     """
     import importlib.metadata
     import importlib.util
@@ -172,6 +173,8 @@ def do_step_path(build_info: Mapping, environ: Mapping | None = None) -> str:
                 f"binary refuses a host on any Python but {'.'.join(built)}")
     elif environ.get("JOINTFMU_KERNEL", "").strip().lower() == "python":
         here = "JOINTFMU_KERNEL=python is set: through Python"
+    elif environ.get("JOINTFMU_DOSTEP", "").strip().lower() == "python":
+        here = "JOINTFMU_DOSTEP=python is set: through Python"
     elif importlib.util.find_spec("numba") is None:
         here = "Numba is not installed: through Python"
     else:

@@ -42,6 +42,7 @@ from __future__ import annotations
 import base64
 import json
 import math
+import os
 from pathlib import Path
 from typing import Any
 
@@ -56,13 +57,17 @@ from .variables import variable_table
 
 __all__ = ["JointSlave", "PARAMETER_FILE", "BUILD_INFO_FILE", "FMI_STATES", "ALLOWED_STATES",
            "INSTANTIATED", "INITIALIZATION_MODE", "STEP_COMPLETE", "STEP_FAILED", "TERMINATED",
-           "ERROR"]
+           "ERROR", "DOSTEP_ENV"]
 
 #: Resource file names written by :mod:`.build`.
 PARAMETER_FILE = "parameters.toml"
 BUILD_INFO_FILE = "jointfmu_build.json"
 
 _STATE_MAGIC = "jointfmu-state-1"
+
+#: ``JOINTFMU_DOSTEP=python`` at instantiation keeps the native binary's doStep in Python even
+#: where it could run compiled (to compare, or to rule the compiled doStep out); same results.
+DOSTEP_ENV = "JOINTFMU_DOSTEP"
 
 # The FMU's states in FMI 2.0's co-simulation state machine (sec. 4.2.4; the native shell,
 # native/fmi2_shell.c, uses the same numbers).  "step failed" follows a doStep that returned
@@ -503,7 +508,7 @@ class JointSlave(Fmi2Slave):
         through _native_do_step otherwise (which plans a new step size, or words a refusal).
         Asked again with the layout (:meth:`_native_layout`)."""
         sim = self._sim
-        if sim is None:
+        if sim is None or os.environ.get(DOSTEP_ENV, "").strip().lower() == "python":
             return None
         try:
             entry = sim.c_step_entry()
