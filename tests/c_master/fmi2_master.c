@@ -6,7 +6,8 @@
  * from the FMI 2.0 standard, sec. 2.1 and 4.2).
  *
  * usage: fmi2_master LIBPYTHON FMU_BINARY RESOURCE_URI GUID DT N IN_VR OUT_VR[,OUT_VR...]
- * stdin: N input values (one per communication step, held over the step)
+ * stdin: N input values (one per communication step, held over the step); with DT "-", N pairs
+ *        "step_size input_value" instead (the communication points their running sum)
  * stdout: "S k t y1 y2 ..." for k = 0..N, then, after restoring the FMU state saved at
  *         k = N/2 (fmi2GetFMUstate/fmi2SetFMUstate), "R k t y1 ..." for k = N/2+1..N.
  *
@@ -190,7 +191,8 @@ int main(int argc, char **argv)
         fprintf(stderr, "cannot load %s: %s\n", argv[2], dlerror());
         return 3;
     }
-    double dt = atof(argv[5]);
+    int varied = strcmp(argv[5], "-") == 0;
+    double dt = varied ? 0.0 : atof(argv[5]);
     int n = atoi(argv[6]);
     fmi2ValueReference in_vr = (fmi2ValueReference)atoi(argv[7]);
     fmi2ValueReference out_vr[64];
@@ -198,11 +200,17 @@ int main(int argc, char **argv)
     for (char *tok = strtok(argv[8], ","); tok && n_out < 64; tok = strtok(NULL, ","))
         out_vr[n_out++] = (fmi2ValueReference)atoi(tok);
     double *u = calloc((size_t)n + 1, sizeof(double));
-    for (int k = 0; k < n; k++)
-        if (scanf("%lf", &u[k]) != 1) {
-            fprintf(stderr, "expected %d input values on stdin\n", n);
+    double *h = calloc((size_t)n + 1, sizeof(double));
+    double *t = calloc((size_t)n + 1, sizeof(double)); /* communication points */
+    for (int k = 0; k < n; k++) {
+        if (varied ? scanf("%lf %lf", &h[k], &u[k]) != 2 : scanf("%lf", &u[k]) != 1) {
+            fprintf(stderr, "expected %d %s on stdin\n", n,
+                    varied ? "pairs of step size and input value" : "input values");
             return 2;
         }
+        if (!varied) h[k] = dt;
+        t[k + 1] = varied ? t[k] + h[k] : (k + 1) * dt;
+    }
 
     Instantiate instantiate = (Instantiate)sym(lib, "fmi2Instantiate");
     SetupExperiment setup = (SetupExperiment)sym(lib, "fmi2SetupExperiment");
@@ -240,9 +248,9 @@ int main(int argc, char **argv)
         for (int k = k0; k < n; k++) {
             if (pass == 0 && k == half) CHECK(get_state(c, &saved));
             CHECK(set_real(c, &in_vr, 1, &u[k]));
-            CHECK(do_step(c, k * dt, dt, 1));
+            CHECK(do_step(c, t[k], h[k], 1));
             CHECK(get_real(c, out_vr, n_out, y));
-            printf("%c %d %.17g", pass == 0 ? 'S' : 'R', k + 1, (k + 1) * dt);
+            printf("%c %d %.17g", pass == 0 ? 'S' : 'R', k + 1, t[k + 1]);
             for (size_t j = 0; j < n_out; j++) printf(" %.17g", y[j]);
             printf("\n");
         }
@@ -251,5 +259,7 @@ int main(int argc, char **argv)
     CHECK(terminate(c));
     free_instance(c);
     free(u);
+    free(h);
+    free(t);
     return 0;
 }
