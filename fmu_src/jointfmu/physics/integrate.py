@@ -42,6 +42,8 @@ __all__ = [
     "DEFAULT_MERGE_TOL",
     "DEFAULT_STACK_CAPACITY",
     "MIN_STEPS_PER_PERIOD",
+    "MAX_INPUT",
+    "PLAN_SLOTS",
     "kernel_info",
 ]
 
