@@ -342,7 +342,7 @@ def _count_python_steps(monkeypatch, result):
     through_python = cls._native_do_step
 
     def counted(self, *args):
-        calls.append(args[1])
+        calls.append(self.instance_name)
         return through_python(self, *args)
     monkeypatch.setattr(cls, "_native_do_step", counted)
     return calls
@@ -362,39 +362,48 @@ def test_compiled_do_step_equals_the_python_path(open_slave, built, monkeypatch)
     assert np.array_equal(rows["native"], rows["pythonfmu"])
     states = {kind: s.fmu.serializeFMUstate(s.fmu.getFMUstate()) for kind, s in slaves.items()}
     assert states["native"] == states["pythonfmu"]
-    assert sorted(set(calls)) == sorted(STEP_SIZES) and len(calls) == len(STEP_SIZES)
+    assert calls == ["native"] * len(STEP_SIZES)
 
 
 @needs_cc
 def test_python_calls_between_steps_send_the_next_step_through_python(open_slave, built,
                                                                       monkeypatch):
-    """A parameter set (refused after initialization, with its message), a state restored, an
-    output read, a NaN input: only a doStep through Python allows compiled steps again, and the
-    numbers stay those of pythonfmu's binary driven the same way."""
-    slaves = {kind: open_slave(kind, kind) for kind in ("native", "pythonfmu")}
+    """A parameter set after initialization (refused, fmi2Error, FMI 2.0 sec. 4.2.4), a state
+    restored, an output read, a NaN input (fmi2Discard) and the state restored after it: only
+    a doStep through Python allows compiled steps again, and the numbers stay those of the
+    same binary with every doStep through Python (JOINTFMU_DOSTEP=python)."""
+    fast = open_slave("native", "fast")
     calls = _count_python_steps(monkeypatch, built["native"])
-    for s in slaves.values():
-        s.init()
+    monkeypatch.setenv("JOINTFMU_DOSTEP", "python")
+    slow = open_slave("native", "slow")
+    slow.init()
+    monkeypatch.delenv("JOINTFMU_DOSTEP")
+    fast.init()
     dt = 2e-4
-    rows = {kind: [] for kind in slaves}
-    for kind, s in slaves.items():
-        rows[kind].append(_drive(s, 0.0, 5, dt, 1))                 # first step: Python
+    rows = {}
+    for name, s in (("fast", fast), ("slow", slow)):
+        r = [_drive(s, 0.0, 5, dt, 1)]                              # first step: Python
         state = s.fmu.getFMUstate()
-        rows[kind].append(_drive(s, 5 * dt, 5, dt, 2))              # compiled (a read between)
-        s.set({"mode[1].joint.Fs": 1.0})                            # refused: initialized
-        rows[kind].append(_drive(s, 10 * dt, 3, dt, 3))             # one through Python
+        r.append(_drive(s, 5 * dt, 5, dt, 2))                       # compiled (reads between)
+        with pytest.raises(Exception):
+            s.set({"mode[1].joint.Fs": 1.0})                        # refused: initialized
+        r.append(_drive(s, 10 * dt, 3, dt, 3))                      # one through Python
         s.fmu.setFMUstate(state)
         s.fmu.freeFMUstate(state)
-        rows[kind].append(_drive(s, 5 * dt, 3, dt, 4))              # one through Python
+        r.append(_drive(s, 5 * dt, 3, dt, 4))                       # one through Python
+        state = s.fmu.getFMUstate()
         s.set({"point.shaker.force": math.nan})
-        with pytest.raises(Exception):
+        with pytest.raises(Exception):                              # fmi2Discard
             s.fmu.doStep(currentCommunicationPoint=8 * dt, communicationStepSize=dt)
-        rows[kind].append(_drive(s, 8 * dt, 3, dt, 5))              # one through Python
-    assert np.array_equal(np.concatenate(rows["native"]), np.concatenate(rows["pythonfmu"]))
-    assert any(st == 3 and "mode[1].joint.Fs" in msg for st, msg in slaves["native"].log)
-    # Python: the first step, after the refused parameter, after the restored state, the NaN
-    # step and the one after it
-    assert len(calls) == 5
+        s.fmu.setFMUstate(state)                                    # the way on (sec. 4.2.4)
+        s.fmu.freeFMUstate(state)
+        r.append(_drive(s, 8 * dt, 3, dt, 5))                       # one through Python
+        rows[name] = np.concatenate(r)
+    assert np.array_equal(rows["fast"], rows["slow"])
+    assert any(st == 3 and "mode[1].joint.Fs" in msg for st, msg in fast.log)
+    # through Python: the first step, after the refused parameter, after the restored state,
+    # the NaN step, after the state restored then; every step of the other instance
+    assert calls.count("fast") == 5 and calls.count("slow") == 20
 
 
 @needs_cc

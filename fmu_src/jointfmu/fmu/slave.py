@@ -134,6 +134,9 @@ class JointSlave(Fmi2Slave):
         self._active = None          # (parameter values, steps) the simulator was built with
         self._init_error: str | None = None
         self._initialized = False
+        # the native binary's doStep in compiled code, unless the environment says otherwise
+        # at instantiation (or reset, which instantiates anew)
+        self._compiled_steps = os.environ.get(DOSTEP_ENV, "").strip().lower() != "python"
         self._fmi_state = INSTANTIATED
         self._native = False         # set by jointfmu's native shell right after instantiation
         self._describing = False     # see to_xml
@@ -508,7 +511,7 @@ class JointSlave(Fmi2Slave):
         through _native_do_step otherwise (which plans a new step size, or words a refusal).
         Asked again with the layout (:meth:`_native_layout`)."""
         sim = self._sim
-        if sim is None or os.environ.get(DOSTEP_ENV, "").strip().lower() == "python":
+        if sim is None or not self._compiled_steps:
             return None
         try:
             entry = sim.c_step_entry()
