@@ -151,12 +151,10 @@ def ns_per_mode_step(sim, seconds: float, repeats: int) -> float:
 # ------------------------------------------------------------------------------- sections
 def _kernel_without_power():
     """``step_planned`` of jointfmu's kernel source with the power x^(chi+2) replaced by x*x,
-    compiled here: a wrong joint, for one measurement only (what the rest of a mode-step costs;
-    see bench_kernel).  Placed beside the compiled kernel's cache folder, so a second run of the
-    benchmark loads it from Numba's cache.  None when the source no longer has that line."""
-    import hashlib
-    import importlib.util
-
+    compiled here (``compiled.compile_source``, beside the kernel in the per-user cache, so a
+    second run of the benchmark loads it): a wrong joint, for one measurement only (what the
+    rest of a mode-step costs; see bench_kernel).  None when the source no longer has that
+    line."""
     from jointfmu.physics import compiled as C
     from jointfmu.physics import kernel as K
 
@@ -164,18 +162,8 @@ def _kernel_without_power():
     line = "p = math.pow(x, jc[i, E2])"
     if source.count(line) != 1:
         return None
-    text = C.compiled_source(source.replace(line, "p = x * x"))
-    name = "bench_nopower_" + hashlib.sha256(text.encode()).hexdigest()[:16]
-    folder = Path(C.CACHE_FILE).parent.parent / name
-    folder.mkdir(parents=True, exist_ok=True)
-    path = folder / f"{name}.py"
-    if not path.exists() or path.read_text(encoding="utf-8") != text:
-        path.write_text(text, encoding="utf-8")
-    mod = sys.modules.get(name)
-    if mod is None:   # registered before it runs: Numba's cache finds the module by name
-        spec = importlib.util.spec_from_file_location(name, path)
-        mod = sys.modules[name] = importlib.util.module_from_spec(spec)
-        spec.loader.exec_module(mod)
+    _, mod = C.compile_source(source.replace(line, "p = x * x"), "bench_nopower",
+                              K.COLD + K.ENTRIES)
     return mod.step_planned
 
 
