@@ -436,6 +436,67 @@ def _cmd_virtual_test(args: argparse.Namespace) -> int:
     print(f"{model.set_id}: {len(results)} records, impact at {args.impact}")
     print(format_levels(model, modes, results))
     print(f"wrote {len(paths)} files to {args.output} (simulated data: no substitute for a test)")
+
+# --- fit (identification from ring-down records, see identify/) ----------------------------------
+def _args_fit(p: argparse.ArgumentParser) -> None:
+    p.add_argument("records", nargs="+", metavar="RECORD",
+                   help="ring-down records, one per file: CSV (time, point.<label>.a|v|x, "
+                        "point.<label>.force) or Universal File dataset 58 (.uff, .unv)")
+    p.add_argument("--template", required=True, metavar="PARAMS.toml",
+                   help="parameter file giving the points, mode shapes, base, mode labels and "
+                        "approximate frequencies (usually the nominal build's)")
+    p.add_argument("--build", metavar="ID",
+                   help="build or serial id of the fitted set (default: the template's)")
+    p.add_argument("-o", "--output", metavar="OUT.toml",
+                   help="fitted parameter file (default build/<name>_<build>.toml); "
+                        "OUT.fit.json is written beside it")
+    p.add_argument("--report", metavar="DIR",
+                   help="also write an HTML report with plots to DIR (replaced as a whole)")
+
+
+def _cmd_fit(args: argparse.Namespace) -> int:
+    """Fit a parameter set of one build from its ring-down records."""
+    from pathlib import Path
+
+    from ..fmu.build import default_output_path
+    from ..identify.fit import fit_build
+    from ..identify.result import CAUTION, mode_summary, write_fit
+    from ..records import read_record
+
+    template = load_parameter_set(args.template)
+    records = [read_record(r, template) for r in args.records]
+    bf = fit_build(records, template)
+    build = args.build if args.build is not None else template.build
+    if args.output:
+        out = Path(args.output)
+    else:
+        from dataclasses import replace
+
+        out = default_output_path(replace(template, build=build)).with_suffix(".toml")
+    toml_path, json_path, ps = write_fit(bf, out, build)
+    print(f"fitted {ps.set_id} from {len(records)} record(s) with the template {template.set_id}")
+    for w in bf.warnings:
+        print(f"  warning: {w}")
+    for mf in bf.modes:
+        print(mode_summary(mf))
+        for name in ("f0", "zeta", "chi", "Fs", "Kt", "beta"):
+            p = mf.params[name]
+            iv = p["interval"]
+            ci = f" [{iv[0]:.5g}, {iv[1]:.5g}]" if iv is not None else ""
+            print(f"    {name:5s} {p['value']:.6g}{ci}  ({p['source']})")
+        if mf.collapse is not None:
+            print(f"    collapse {100 * mf.collapse:.3g} % (spread of the records' and sensors' "
+                  "damping curves about the fitted one)")
+        for w in mf.warnings:
+            print(f"    warning: {w}")
+    if not args.build:
+        print(f"note: no --build given: the fitted set keeps the template's build id {build!r}")
+    print(f"wrote {toml_path} (hash {ps.short_hash()}) and {json_path}")
+    if args.report:
+        from ..report.fit import write_fit_report
+
+        print(f"wrote {write_fit_report(bf, args.report)}")
+    print(CAUTION)
     return 0
 
 
@@ -455,6 +516,8 @@ _COMMANDS: dict[str, tuple[Callable[[argparse.ArgumentParser], None],
                    "write the fitted mode values as an SSP 1.0 parameter-values file (.ssv)"),
     "export-ssp": (_args_export_ssp, _cmd_export_ssp,
                    "the system (structure, loads and damper FMUs) as an SSP 1.0 package (.ssp)"),
+    "fit": (_args_fit, _cmd_fit, "fit a build's parameter set from its ring-down records "
+                                 "(CSV or UFF 58)"),
     "report": (_args_report, _cmd_report,
                "characterization report (HTML + PNG) of one or more builds"),
     "linearize": (_args_linearize, _cmd_linearize,
