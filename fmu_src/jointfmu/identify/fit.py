@@ -68,6 +68,7 @@ __all__ = [
     "ModeFit",
     "BuildFit",
     "prepare_mode",
+    "record_signals",
     "fit_build",
     "simulate_segments",
 ]
@@ -442,6 +443,9 @@ class ModeFit:
     theta: np.ndarray | None = None
     theta_names: tuple = ()
     intervals: dict = field(default_factory=dict)
+    f_obs: float = 0.0                      # frequency the processing was set up for [Hz]
+    cov: np.ndarray | None = None           # covariance of theta (Wald, times s2)
+    kind_joint: tuple = ()                  # (f0, zeta, Fs, Kt, chi, beta) the fit simulated
 
 
 @dataclass
@@ -485,7 +489,8 @@ def _band_edges(f_obs, template, i, ratio, fs):
     return lo, min(hi, 0.45 * fs)
 
 
-def _record_signals(record: Record, template: ParameterSet):
+def record_signals(record: Record, template: ParameterSet):
+    """Channels, shapes, impact and pre-trigger noise of a record (what every mode needs)."""
     q, chans, ignored = _choose_channels(record)
     pts = {p.label: p for p in template.points}
     phi = np.array([pts[c.point].shape for c in chans])        # (n_ch, N)
@@ -523,34 +528,42 @@ def _separated_modes(template, sg, f_obs, band, i):
     return None
 
 
-def prepare_mode(records, sigs, template, i, warn):
+#: A mode counts as present in a record when its spectral peak stands this far above the median
+#: of the spectrum around it.
+PEAK_RATIO = 20.0
+
+
+def prepare_mode(records, sigs, template, i, warn, band=None, f_obs=None):
     """Process every record for mode ``i``: band, segments (fit samples) and curves.
 
+    ``band`` and ``f_obs`` (the mode's frequency) are found from the records unless given.
     Returns ``(band, segments, f_obs)``; ``segments`` empty when no record excites the mode above
     its noise floor.
     """
     m = template.modes[i]
-    lo_s, hi_s = _search_range(template, i)
-    peaks = []
-    for rec, sg in zip(records, sigs):
-        w = P.modal_weights(sg["phi"], list(range(template.n_modes)), i, sg["sig"])
-        y = sg["X"] @ w
-        k = sg["imp"].index
-        f, ratio = P.spectral_peak(y[k:], rec.dt, lo_s, hi_s)
-        if np.isfinite(f) and ratio > 20.0:
-            peaks.append((ratio, f))
-    if not peaks:
-        return None, [], m.f0
-    peaks.sort()
-    f_obs = float(np.median([f for _, f in peaks[len(peaks) // 2:]]))
-    fs = records[0].rate
-    band = P.make_band(*_band_edges(f_obs, template, i, f_obs / m.f0, fs), fs)
+    if band is None:
+        lo_s, hi_s = _search_range(template, i)
+        peaks = []
+        for rec, sg in zip(records, sigs):
+            w = P.modal_weights(sg["phi"], list(range(template.n_modes)), i, sg["sig"])
+            y = sg["X"] @ w
+            k = sg["imp"].index
+            f, ratio = P.spectral_peak(y[k:], rec.dt, lo_s, hi_s)
+            if np.isfinite(f) and ratio > PEAK_RATIO:
+                peaks.append((ratio, f))
+        if not peaks:
+            return None, [], m.f0
+        peaks.sort()
+        f_obs = float(np.median([f for _, f in peaks[len(peaks) // 2:]]))
+        fs = records[0].rate
+        band = P.make_band(*_band_edges(f_obs, template, i, f_obs / m.f0, fs), fs)
+    fs = band.fs
     per = 1.0 / f_obs
     segs = []
     for r, (rec, sg) in enumerate(zip(records, sigs)):
         if abs(rec.rate - fs) > 1e-6 * fs:
-            warn(f"{rec.source}: sample rate {rec.rate:g} Hz differs from {fs:g} Hz of "
-                 f"{records[0].source}; not used for mode {i + 1} ({m.label})")
+            warn(f"{rec.source}: sample rate {rec.rate:g} Hz differs from {fs:g} Hz of the "
+                 f"other records; not used for mode {i + 1} ({m.label})")
             continue
         sep = _separated_modes(template, sg, f_obs, band, i)
         if sep is None:
@@ -868,7 +881,9 @@ def fit_mode(i, template: ParameterSet, band, segs, f_obs, warn_mode) -> ModeFit
                  amplitude_range=[amin, amax], reached_macroslip=(kind == "macro"),
                  collapse=None, warnings=warns, kind=kind, segments=segs, start=cf, chi2=chi2,
                  dof=dof, s2=s2, lr_macro=lr, band=band, v0=np.exp(x[prob.p:]), spp=spp,
-                 theta=theta, theta_names=prob.names, intervals=intervals)
+                 theta=theta, theta_names=prob.names, intervals=intervals, f_obs=f_obs,
+                 cov=np.linalg.pinv(J.T @ J)[: prob.p, : prob.p] * s2,
+                 kind_joint=prob.joint(theta))
     _collapse(mf, prob, x)
     return mf
 
@@ -1005,7 +1020,7 @@ def fit_build(records, template: ParameterSet) -> BuildFit:
     build_warn: list[str] = []
     sigs = []
     for rec in records:
-        sg = _record_signals(rec, template)
+        sg = record_signals(rec, template)
         if sg["ignored"]:
             build_warn.append(f"{rec.source}: channels {', '.join(sg['ignored'])} measure another "
                               f"quantity than the {len(sg['chans'])} '{sg['q']}' channels and are "
@@ -1020,12 +1035,3 @@ def fit_build(records, template: ParameterSet) -> BuildFit:
         band, segs, f_obs = prepare_mode(records, sigs, template, i, wm.append)
         modes.append(fit_mode(i, template, band, segs, f_obs, wm))
     return BuildFit(template=template, records=list(records), modes=modes, warnings=build_warn)
-
-
-def simulate_record(mf: ModeFit, seg: Segment) -> np.ndarray:
-    """The fitted mode's simulated ring-down for one record's segment (its quantity, modal)."""
-    j = (mf.mode.f0, mf.mode.zeta, mf.mode.joint.Fs, mf.mode.joint.Kt, mf.mode.joint.chi,
-         mf.mode.joint.beta)
-    r = mf.segments.index(seg)
-    return simulate_segments([j], mf.v0[None, r: r + 1], [seg], mf.spp)[0][:, 0]
-
