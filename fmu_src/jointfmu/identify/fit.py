@@ -513,19 +513,25 @@ MAX_CONDITION = 30.0
 
 
 def _separated_modes(template, sg, f_obs, band, i):
-    """The modes the modal filter separates: all of them when the sensors can (no fewer
-    channels than modes and a condition number up to MAX_CONDITION), else those inside this
-    mode's pass band when the sensors can separate those; None when not even that."""
+    """The modes the modal filter separates from mode i: mode i and its nearest neighbours in
+    frequency, as many as the sensors can separate (no more than the channels, a condition number
+    of the noise-weighted shapes up to MAX_CONDITION), all of them when possible.  None when
+    the modes inside the pass band cannot all be separated (the band-pass removes the rest)."""
     phi = sg["phi"]
     sig = sg["sig"]
     ws = phi if sig is None else phi / np.maximum(sig, 1e-300)[:, None]
-    n = template.n_modes
-    if phi.shape[0] >= n and np.linalg.cond(ws) <= MAX_CONDITION:
-        return list(range(n))
+    f = np.array([m.f0 for m in template.modes])
+    order = [int(j) for j in np.argsort(np.abs(np.log(f / f[i]))) if j != i]
+    chosen = [i]
+    for j in order:
+        trial = chosen + [j]
+        if len(trial) > phi.shape[0] or np.linalg.cond(ws[:, trial]) > MAX_CONDITION:
+            break
+        chosen = trial
     inb = _modes_in_band(template, f_obs, band.f_lo, band.f_hi, i)
-    if len(inb) <= phi.shape[0] and np.linalg.cond(ws[:, inb]) <= MAX_CONDITION:
-        return inb
-    return None
+    if not set(inb) <= set(chosen):
+        return None
+    return sorted(chosen)
 
 
 #: A mode counts as present in a record when its spectral peak stands this far above the median
@@ -739,6 +745,10 @@ def _profile(prob: _Problem, x, J, res, s2, lower, upper):
         z[:p] = np.clip(z[:p], lower, upper)
         finals.append((z, _chi2(res_n[0])))
     R2 = prob.evaluate(np.array([z for z, _ in finals]))
+    # a profile point below the minimum means the fit had not found it: report it
+    c2 = np.array([_chi2(r) for r in R2])
+    kbest = int(np.argmin(c2))
+    prob.better = finals[kbest][0] if c2[kbest] < chi2_min - 0.05 * s2 else None
     out = {}
     for j in range(p):
         ends = []
@@ -828,6 +838,14 @@ def fit_mode(i, template: ParameterSet, band, segs, f_obs, warn_mode) -> ModeFit
     else:
         J = sol.jac
     intervals = _profile(prob, x, J, res, s2, lo, hi)
+    if getattr(prob, "better", None) is not None:
+        # the profile found a lower chi2 than the fit: fit again from there, once
+        sol2 = prob.solve(prob.better, lo, hi)
+        if _chi2(sol2.fun) < chi2:
+            x, res, J = sol2.x, sol2.fun, sol2.jac
+            chi2 = _chi2(res)
+            s2 = max(1.0, chi2 / dof)
+        intervals = _profile(prob, x, J, res, s2, lo, hi)
     warns = list(warn_mode)
     theta = x[: prob.p]
     f0, zeta, chi = float(theta[0]), float(theta[1]), float(theta[2])
@@ -1017,6 +1035,18 @@ def fit_build(records, template: ParameterSet) -> BuildFit:
     """
     if not records:
         raise InputError("no records given: fit needs at least one ring-down record")
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - a declared dependency; the fit works without it
+        return _fit_build(records, template)
+    # The fit builds thousands of 5x5 matrix exponentials (the core's step coefficients) and
+    # small least-squares systems: BLAS threads only add overhead, and on a busy machine they
+    # make it about three times slower (measured).
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _fit_build(records, template)
+
+
+def _fit_build(records, template: ParameterSet) -> BuildFit:
     build_warn: list[str] = []
     sigs = []
     for rec in records:
