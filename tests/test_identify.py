@@ -168,7 +168,7 @@ def test_impact_time_is_the_force_pulse_centroid():
     a = np.where(t > tc, np.sin(TWO_PI * 90 * (t - tc)), 0.0)
     rec = Record(t, (Channel("point.tip.a", a), Channel("point.hammer.force", f)))
     imp = P.impact(rec)
-    assert abs(imp.time - tc) < 0.05 / fs  # sampled half-sine: centroid to a 20th of a sample
+    assert abs(imp.time - tc) < 0.1 / fs  # a half-sine over 2.5 samples: centroid to 0.1 sample
     assert imp.how == "force channel point.hammer.force"
 
 
@@ -198,9 +198,10 @@ def test_closed_form_fit_recovers_exact_curves():
     cv = mode_curves(truth, A)
     curve = P.ModeCurves(np.arange(A.size) * 1.0, A, cv.zeta_rd, cv.freq_1)
     cf = fit_micro_slip([curve], 150.0)
-    assert cf.f0 == pytest.approx(150.0, rel=1e-6)
-    assert cf.zeta == pytest.approx(0.003, rel=1e-3)
-    assert cf.chi == pytest.approx(-0.45, abs=1e-3)
+    # to within the linear interpolation in log amplitude that pools the curves (~1e-4..1e-3)
+    assert cf.f0 == pytest.approx(150.0, rel=1e-5)
+    assert cf.zeta == pytest.approx(0.003, rel=3e-3)
+    assert cf.chi == pytest.approx(-0.45, abs=2e-3)
     assert cf.R == pytest.approx(2.0e7, rel=1e-2)
 
 
@@ -334,3 +335,83 @@ def test_a_record_too_short_for_a_mode_is_an_error():
 def test_no_records_is_an_error():
     with pytest.raises(InputError, match="no records given"):
         fit_build([], TEMPLATE_1)
+
+
+# ---------------------------------------------------------------------------------------------
+# the command line, end to end: fit -> check -> build, and the report
+# ---------------------------------------------------------------------------------------------
+@pytest.fixture(scope="session")
+def cli_run(one_mode_records, tmp_path_factory):
+    """``jointfmu fit`` on the one-mode records (two as CSV, one as UFF 58) with a report."""
+    from jointfmu import cli, save_parameter_set
+    from jointfmu.records import write_csv, write_uff
+
+    d = tmp_path_factory.mktemp("fitcli")
+    tpl = save_parameter_set(TEMPLATE_1, d / "template.toml")
+    files = [write_csv(one_mode_records[0], d / "level1.csv"),
+             write_uff(one_mode_records[1], d / "level2.uff", TEMPLATE_1),
+             write_csv(one_mode_records[2], d / "level3.csv")]
+    out = d / "out" / "bar_b7.toml"
+    import contextlib
+    import io
+
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf):
+        code = cli.main(["fit", *map(str, files), "--template", str(tpl), "--build", "B-7",
+                         "-o", str(out), "--report", str(d / "report")])
+    return code, buf.getvalue(), out, files, d
+
+
+def test_cli_fit_check_build(cli_run, capsys):
+    from jointfmu import cli
+    from jointfmu.identify.result import file_sha256
+
+    code, text, out, files, d = cli_run
+    assert code == 0, text
+    assert "mode 1 m1: micro-slip only" in text
+    assert re.search(r"f0 +\d+\.\d+ \[\d+\.\d+, \d+\.\d+\]  \(data\)", text)
+    assert re.search(r"Fs +\d+\.?\d* +\(template\)", text)
+    assert "no substitute for qualification testing" in text
+    doc = json.loads(fit_json_path(out).read_text())
+    assert [r["file"] for r in doc["records"]] == ["level1.csv", "level2.uff", "level3.csv"]
+    assert [r["sha256"] for r in doc["records"]] == [file_sha256(f) for f in files]
+    ps = load_parameter_set(out)
+    assert ps.build == "B-7" and ps.points == TEMPLATE_1.points
+    assert "level2.uff (sha256 " + file_sha256(files[1]) in ps.provenance.source_data
+    assert "Fs solved from R" in ps.provenance.notes and ps.provenance.fitted_by.startswith("jointfmu")
+    assert cli.main(["check", str(out)]) == 0
+    fmu = d / "bar.fmu"
+    assert cli.main(["build", str(out), "-o", str(fmu)]) == 0
+    capsys.readouterr()
+    import zipfile
+
+    with zipfile.ZipFile(fmu) as z:
+        assert "modelDescription.xml" in z.namelist()
+
+
+def test_cli_report_content(cli_run):
+    from PIL import Image
+
+    code, text, out, files, d = cli_run
+    page = (d / "report" / "index.html").read_text()
+    ps = load_parameter_set(out)
+    assert "no substitute for qualification testing" in page
+    assert f"{ps.modes[0].f0:.5g}" in page                    # the fitted value in the table
+    assert "A record held out of the fit" in page and "rms envelope error" in page
+    assert page.count("<small>template</small>") == 3          # Fs, Kt, beta
+    for name, size in (("mode1.png", (1300, 420)), ("holdout.png", (600, 600))):
+        with Image.open(d / "report" / name) as im:
+            assert im.size == size
+
+
+def test_cli_bad_record_writes_nothing(tmp_path, capsys):
+    from jointfmu import cli, save_parameter_set
+
+    tpl = save_parameter_set(TEMPLATE_1, tmp_path / "template.toml")
+    bad = tmp_path / "bad.csv"
+    bad.write_text("time,point.s1.a\n0.0,1.0\n0.001,nan\n0.002,0.5\n")
+    out = tmp_path / "o" / "x.toml"
+    assert cli.main(["fit", str(bad), "--template", str(tpl), "-o", str(out)]) == 1
+    err = capsys.readouterr().err
+    assert err.startswith("jointfmu: error: ") and "bad.csv: line 3, column 'point.s1.a'" in err
+    assert "Traceback" not in err and not out.exists() and not (tmp_path / "o").exists()

@@ -458,14 +458,13 @@ def _cmd_fit(args: argparse.Namespace) -> int:
     """Fit a parameter set of one build from its ring-down records."""
     from pathlib import Path
 
+    from ..fileio import check_output_path
     from ..fmu.build import default_output_path
     from ..identify.fit import fit_build
-    from ..identify.result import CAUTION, mode_summary, write_fit
+    from ..identify.result import CAUTION, fit_json_path, mode_summary, write_fit
     from ..records import read_record
 
     template = load_parameter_set(args.template)
-    records = [read_record(r, template) for r in args.records]
-    bf = fit_build(records, template)
     build = args.build if args.build is not None else template.build
     if args.output:
         out = Path(args.output)
@@ -473,6 +472,13 @@ def _cmd_fit(args: argparse.Namespace) -> int:
         from dataclasses import replace
 
         out = default_output_path(replace(template, build=build)).with_suffix(".toml")
+    # every output checked before the work starts; every record read and checked too
+    check_output_path(out, "file", "-o/--output")
+    check_output_path(fit_json_path(out), "file", "the .fit.json beside -o/--output")
+    if args.report:
+        check_output_path(args.report, "folder", "--report")
+    records = [read_record(r, template) for r in args.records]
+    bf = fit_build(records, template)
     toml_path, json_path, ps = write_fit(bf, out, build)
     print(f"fitted {ps.set_id} from {len(records)} record(s) with the template {template.set_id}")
     for w in bf.warnings:
@@ -482,8 +488,9 @@ def _cmd_fit(args: argparse.Namespace) -> int:
         for name in ("f0", "zeta", "chi", "Fs", "Kt", "beta"):
             p = mf.params[name]
             iv = p["interval"]
-            ci = f" [{iv[0]:.5g}, {iv[1]:.5g}]" if iv is not None else ""
-            print(f"    {name:5s} {p['value']:.6g}{ci}  ({p['source']})")
+            n = _digits(p["value"], iv)
+            ci = f" [{iv[0]:.{n}g}, {iv[1]:.{n}g}]" if iv is not None else ""
+            print(f"    {name:5s} {p['value']:.{n}g}{ci}  ({p['source']})")
         if mf.collapse is not None:
             print(f"    collapse {100 * mf.collapse:.3g} % (spread of the records' and sensors' "
                   "damping curves about the fitted one)")
@@ -498,6 +505,16 @@ def _cmd_fit(args: argparse.Namespace) -> int:
         print(f"wrote {write_fit_report(bf, args.report)}")
     print(CAUTION)
     return 0
+
+
+def _digits(value: float, interval) -> int:
+    """Significant digits that tell a value and its interval's ends apart (2 digits of the
+    interval's width), 4 to 12."""
+    import math
+
+    if interval is None or not interval[1] > interval[0] or value == 0:
+        return 6
+    return int(min(12, max(4, 2 + math.ceil(math.log10(abs(value) / (interval[1] - interval[0]))))))
 
 
 # --- the table -------------------------------------------------------------------------------------

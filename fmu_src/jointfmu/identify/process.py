@@ -347,7 +347,7 @@ def channel_noise(record: Record, names: tuple[str, ...], pre: int) -> np.ndarra
 def spectral_peak(y: np.ndarray, dt: float, f_lo: float, f_hi: float) -> tuple[float, float]:
     """Largest peak of the Hann-windowed amplitude spectrum in ``[f_lo, f_hi]``, refined by
     parabolic interpolation of the log magnitude (common practice): ``(frequency, peak / median
-    of the spectrum in the search range)``."""
+    of the whole spectrum)``, the median standing for the noise floor (peaks hold few bins)."""
     n = y.size
     n_fft = _fft.next_fast_len(4 * n)
     S = np.abs(_fft.rfft((y - y.mean()) * np.hanning(n), n_fft))
@@ -361,7 +361,7 @@ def spectral_peak(y: np.ndarray, dt: float, f_lo: float, f_hi: float) -> tuple[f
         d = 0.5 * (a - c) / (a - 2 * b + c) if (a - 2 * b + c) != 0 else 0.0
     else:
         d = 0.0
-    ratio = float(S[k] / max(np.median(S[sel]), 1e-300))
+    ratio = float(S[k] / max(np.median(S[1:]), 1e-300))
     return float(f[k] + d * (f[1] - f[0])), ratio
 
 
