@@ -16,7 +16,7 @@ import numpy as np
 from jointfmu.physics.reference import simulate
 from jointfmu.records import Channel, Record
 
-__all__ = ["make_record", "quantity_of"]
+__all__ = ["make_record", "with_noise", "quantity_of"]
 
 _KEY = {"a": "qddot", "v": "qdot", "x": "q"}
 
@@ -58,3 +58,20 @@ def make_record(params, impact_point: str, impulse: float, *, rate: float = 5120
     comments = (f"synthetic ring-down (SciPy reference), impulse {impulse:g} N s at {impact_point}",
                 f"seed {seed}, SNR {snr_db} dB")
     return Record(t, tuple(chans), comments, source or f"syn_{impact_point}_{impulse:g}_{seed}.csv")
+
+
+def with_noise(record: Record, snr_db: float, seed: int, source: str | None = None) -> Record:
+    """The same record with fresh sensor noise (responses at ``snr_db`` on their RMS after the
+    impact at t = 0, forces at 0.1 % of their peak): many noise draws of one noise-free truth."""
+    rng = np.random.default_rng(seed)
+    k0 = int(np.searchsorted(record.time, 0.0))
+    chans = []
+    for c in record.channels:
+        if c.is_response:
+            rms = math.sqrt(float(np.mean(c.data[k0:] ** 2)))
+            scale = rms * 10.0 ** (-snr_db / 20.0)
+        else:
+            scale = 1e-3 * float(np.max(np.abs(c.data)))
+        chans.append(Channel(c.name, c.data + rng.standard_normal(c.data.size) * scale))
+    return Record(record.time, tuple(chans), record.comments + (f"noise seed {seed}",),
+                  source or record.source)

@@ -82,6 +82,8 @@ CHI2_95 = 3.841458820694124
 CHI2_MACRO = 13.815510557964274
 #: A record is used for a mode only if its window spans at least this amplitude ratio.
 MIN_RANGE = 1.5
+#: Macro-slip values whose 95 % interval is wider than this (relative half-width) are warned about.
+WIDE_MACRO = 0.10
 #: Collapse above this is warned about.
 COLLAPSE_WARN = 0.10
 
@@ -155,13 +157,14 @@ def _choose_channels(record: Record):
 # simulation of many ring-downs of one mode at once
 # ------------------------------------------------------------------------------------------
 def _plan(f0: float, dt: float) -> tuple[float, int]:
-    """steps_per_period giving a fixed number of sub-steps per sample for f0 within +-30 %.
+    """``steps_per_period`` for the core: at least MIN_STEPS_PER_PERIOD_FIT sub-steps per period,
+    a whole number of them per sample, and that number unchanged while the fit moves f0.
 
-    The core splits a step into ``ceil(dt spp f0)`` sub-steps; putting ``dt spp f0`` half-way
-    between two integers keeps that count, hence the discretization, unchanged while the fit
-    moves f0, so finite differences see a smooth function.
+    The core splits a sample step into ``ceil(dt spp f0)`` sub-steps; putting ``dt spp f0``
+    half-way between two integers keeps that count, hence the discretization, fixed for f0 within
+    ``+-0.5/(n_sub - 0.5)`` of the start, so finite differences see a smooth function.
     """
-    n_sub = max(2, int(math.ceil(dt * MIN_STEPS_PER_PERIOD_FIT * f0 * 1.3)))
+    n_sub = max(1, int(math.ceil(dt * MIN_STEPS_PER_PERIOD_FIT * f0)))
     return (n_sub - 0.5) / (dt * f0), n_sub
 
 
@@ -812,7 +815,7 @@ def fit_mode(i, template: ParameterSet, band, segs, f_obs, warn_mode) -> ModeFit
     if a_peak is not None:
         # macro-slip is likely: fit it first, from the onset at the damping peak; the micro-slip
         # fit then only has to show it is much worse
-        macro = _try_macro(segs, band, spp, x0, tm, a_peak)
+        macro = _try_macro(segs, band, spp, x0, tm, (0.7 * a_peak, a_peak, 1.4 * a_peak))
         sol = prob.solve(x0, lo, hi, max_iter=8 if macro is not None else 30)
     else:
         sol = prob.solve(x0, lo, hi)
@@ -821,7 +824,7 @@ def fit_mode(i, template: ParameterSet, band, segs, f_obs, warn_mode) -> ModeFit
     chi2 = _chi2(res)
     s2 = max(1.0, chi2 / dof)
     if macro is None and _needs_macro(tm, amax, chi2 / dof, prob, res):
-        macro = _try_macro(segs, band, spp, x, tm, 0.85 * amax)
+        macro = _try_macro(segs, band, spp, x, tm, (0.4 * amax, 0.6 * amax, 0.85 * amax))
     if macro is not None:
         lr = (chi2 - macro[2]) / max(1.0, macro[2] / max(1, res.size - macro[0].size - len(segs)))
         f0m, _, chim, lnfs, share, betam = macro[0][:6]
@@ -878,6 +881,15 @@ def fit_mode(i, template: ParameterSet, band, segs, f_obs, warn_mode) -> ModeFit
         lnfs, share, beta = float(theta[3]), float(theta[4]), float(theta[5])
         Fs, kt = math.exp(lnfs), share * w0sq
         c = joint_constants(Fs, kt, chi, beta)
+        wide = {"Fs": (math.exp(iv["lnFs"][1]) - math.exp(iv["lnFs"][0])) / 2.0 / Fs,
+                "Kt": (iv["share"][1] - iv["share"][0]) / 2.0 / share} if (
+            "lnFs" in iv and "share" in iv) else {}
+        if wide and max(wide.values()) > WIDE_MACRO:
+            warns.append(
+                f"the records reach only {amax / c.phimax:.2g}x the fitted onset of macro-slip "
+                f"({c.phimax:.3g} m*sqrt(kg)): Fs and Kt are determined to +-{100 * wide['Fs']:.2g} % "
+                f"and +-{100 * wide['Kt']:.2g} % only (95 %); records at higher levels narrow "
+                "them")
         params.update({
             "Fs": {"value": Fs, "interval": [math.exp(iv["lnFs"][0]), math.exp(iv["lnFs"][1])]
                    if "lnFs" in iv else None, "source": "data"},
@@ -906,23 +918,42 @@ def fit_mode(i, template: ParameterSet, band, segs, f_obs, warn_mode) -> ModeFit
     return mf
 
 
-def _try_macro(segs, band, spp, x_micro, tm, a_onset):
-    """Fit the macro-slip model from a start with its onset of macro-slip at ``a_onset`` and the
-    micro-slip values of ``x_micro``; ``(x, residual, chi2, jacobian)`` or None."""
+def _macro_start(x_micro, beta, a_onset):
+    """Macro-slip parameters with the micro-slip values of ``x_micro`` (f0, zeta, chi, ln R) and
+    the onset of macro-slip at ``a_onset`` (Segalman 2005, physics sheet sec. 1:
+    ``Kt = R phimax^(chi+1) (1+beta)/(chi+1)``, ``Fs = R phimax^(chi+2) (1/(chi+2) + beta/(chi+1))``),
+    or None when that would make the joint stiffer than the mode."""
     f0, zeta, chi, lnR = x_micro[:4]
     R = math.exp(lnR)
     w0sq = (_TWO_PI * f0) ** 2
-    prob = _Problem(segs, band, "macro", spp)
-    lo, hi = _bounds("macro", f0)
-    beta = tm.joint.beta
-    # Segalman 2005 (physics sheet sec. 1): Kt = R phimax^(chi+1) (1+beta)/(chi+1),
-    # Fs = R phimax^(chi+2) (1/(chi+2) + beta/(chi+1))
     kt = R * a_onset ** (chi + 1.0) * (1.0 + beta) / (chi + 1.0)
     if not kt < 0.95 * w0sq:
-        kt = 0.5 * w0sq
-        R = kt * (chi + 1.0) / ((1.0 + beta) * a_onset ** (chi + 1.0))
+        return None
     fs = R * a_onset ** (chi + 2.0) * (1.0 / (chi + 2.0) + beta / (chi + 1.0))
-    x0 = np.concatenate([[f0, zeta, chi, math.log(fs), kt / w0sq, beta], x_micro[4:]])
+    return np.concatenate([[f0, zeta, chi, math.log(fs), kt / w0sq, beta], x_micro[4:]])
+
+
+def _try_macro(segs, band, spp, x_micro, tm, onsets):
+    """Fit the macro-slip model; ``(x, residual, chi2, jacobian)`` or None.
+
+    The start is the best of a few onsets of macro-slip (``onsets``, amplitudes) and two values
+    of beta, judged by their misfit in one batch of simulations, then refined by
+    Levenberg-Marquardt: the misfit has shallow valleys along Fs-beta where a single start can
+    stall.
+    """
+    prob = _Problem(segs, band, "macro", spp)
+    lo, hi = _bounds("macro", x_micro[0])
+    starts = []
+    for a in onsets:
+        for beta in (tm.joint.beta, 0.5 * tm.joint.beta + 0.05):
+            x0 = _macro_start(x_micro, beta, a)
+            if x0 is not None:
+                x0[:6] = np.clip(x0[:6], lo, hi)
+                starts.append(x0)
+    if not starts:
+        return None
+    costs = np.einsum("ij,ij->i", *(2 * [prob.evaluate(np.array(starts))]))
+    x0 = starts[int(np.argmin(costs))]
     try:
         sol = prob.solve(x0, lo, hi)
     except InputError:
