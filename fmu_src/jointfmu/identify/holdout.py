@@ -64,8 +64,14 @@ class ModePrediction:
     frequency: float
 
 
-def _impulse(record: Record, imp) -> tuple[str, float] | None:
-    """(point label, impulse N s) of the strongest force channel over the pulse, or None."""
+def _impulse(record: Record) -> tuple[str, float] | None:
+    """(point label, impulse N s) of the strongest force channel, or None.
+
+    The force summed over the pulse and three times its width on either side (at least 16
+    samples), less the channel's median: an anti-alias filter spreads a short pulse into a main
+    lobe with side lobes of the opposite sign, and only the whole keeps the impulse (the filter's
+    gain at zero frequency is one).
+    """
     if not record.forces:
         return None
     c = max(record.forces, key=lambda ch: float(np.max(np.abs(ch.data))))
@@ -77,7 +83,8 @@ def _impulse(record: Record, imp) -> tuple[str, float] | None:
         lo -= 1
     while hi < f.size - 1 and sgn * f[hi + 1] > 0.05 * abs(f[k]):
         hi += 1
-    return c.point, float(np.sum(f[lo: hi + 1]) * record.dt)
+    pad = max(16, 3 * (hi - lo + 1))
+    return c.point, float(np.sum(f[max(0, lo - pad): hi + 1 + pad]) * record.dt)
 
 
 def predict_record(bf: BuildFit, record: Record) -> list[ModePrediction]:
@@ -89,7 +96,7 @@ def predict_record(bf: BuildFit, record: Record) -> list[ModePrediction]:
     template = bf.template
     sg = record_signals(record, template)
     pts = {p.label: p for p in template.points}
-    imp = _impulse(record, sg["imp"])
+    imp = _impulse(record)
     out = []
     for i, mf in enumerate(bf.modes):
         if mf.kind == "template" or mf.band is None:

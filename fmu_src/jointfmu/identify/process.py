@@ -184,7 +184,7 @@ class Impact:
     how : str
         ``"force channel <name>"`` or ``"response onset"``.
     pre : int
-        Samples before the impact that hold no response (the pre-trigger).
+        Samples before the impact that hold no response (the pre-trigger, less a margin).
     """
 
     time: float
@@ -222,8 +222,9 @@ def impact(record: Record) -> Impact:
         k0 = min(onsets)
         ti, how, pre = float(t[k0]), "response onset", k0
     index = int(np.clip(round((ti - t[0]) / dt), 0, t.size - 1))
-    # samples clear of the pulse: two samples of margin before its start
-    return Impact(ti, index, how, max(0, pre - 2))
+    # samples clear of the pulse: a margin before its start of 16 samples and a tenth of the
+    # pre-trigger, for the pre-ringing of a linear-phase anti-alias filter
+    return Impact(ti, index, how, max(0, pre - 16 - pre // 10))
 
 
 # ------------------------------------------------------------------------------------------
@@ -335,10 +336,16 @@ def noise_level(y_pre: np.ndarray | None, Z_tail: np.ndarray | None, band: Band,
 
 
 def channel_noise(record: Record, names: tuple[str, ...], pre: int) -> np.ndarray | None:
-    """Standard deviation of each named channel over the pre-trigger (None if under 32 samples)."""
+    """Noise standard deviation of each named channel over the pre-trigger (None if under 32
+    samples): ``1.4826 median|x - median(x)|``, the median absolute deviation scaled for a normal
+    distribution (common practice), which a few disturbed samples do not move."""
     if pre < 32:
         return None
-    return np.array([float(np.std(record.channel(n).data[:pre])) for n in names])
+    out = []
+    for n in names:
+        x = record.channel(n).data[:pre]
+        out.append(1.4826 * float(np.median(np.abs(x - np.median(x)))))
+    return np.array(out)
 
 
 # ------------------------------------------------------------------------------------------
