@@ -26,6 +26,7 @@ import os
 from dataclasses import replace
 from pathlib import Path
 
+from ..analysis.linear import CAUTION  # the package's one caution text
 from ..fileio import atomic_write
 from ..params import ParameterSet, Provenance
 from .fit import BuildFit, ModeFit
@@ -37,8 +38,6 @@ __all__ = ["FIT_FORMAT", "PARAM_NAMES", "CAUTION", "METHOD", "fitted_parameter_s
 FIT_FORMAT = "jointfmu-fit/1"
 #: The values of ``modes[].params``, in order.
 PARAM_NAMES = ("f0", "zeta", "chi", "Fs", "Kt", "beta")
-CAUTION = ("A fitted model is no substitute for qualification testing; defer to the applicable "
-           "codes, standards and licensed engineering practice.")
 METHOD = ("modal filter (pseudo-inverse of the template's shapes at the sensors), mirrored "
           "zero-phase band-pass and Hilbert envelope and phase (Feldman, MSSP 8(2) 1994 and 25(3) "
           "2011), matched to simulated ring-downs of the exact modal Iwan core passed through the "

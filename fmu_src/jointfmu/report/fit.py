@@ -28,24 +28,18 @@ from ..identify.closed_form import micro_mode
 from ..identify.fit import BuildFit, ModeFit, fit_build
 from ..identify.holdout import CLEAN, predict_record
 from ..identify.process import FLOOR, impact
-from ..identify.result import CAUTION, PARAM_NAMES, file_sha256, mode_summary
+from ..identify.result import PARAM_NAMES, file_sha256, mode_summary
 from ..params import JointParams, Mode
+from .figures import new_figure
+from .render import render_page
 
-__all__ = ["write_fit_report", "TEMPLATE_DIR"]
-
-#: Folder of the page templates (package data).
-TEMPLATE_DIR = Path(__file__).resolve().parent / "templates"
+__all__ = ["write_fit_report"]
 _TWO_PI = 2.0 * math.pi
 _MARKERS = ("o", "s", "^", "v", "D", "P", "X", "<", ">")
 
 
 def _figure(nrows, ncols, w=13.0, h=4.2):
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(w, h), dpi=100, layout="constrained")
-    FigureCanvasAgg(fig)
-    return fig, fig.subplots(nrows, ncols, squeeze=False)
+    return new_figure((w, h), nrows, ncols, layout="constrained", squeeze=False)
 
 
 def _color(k):
@@ -196,8 +190,6 @@ def write_fit_report(bf: BuildFit, out_dir: str | os.PathLike, *, hold_out: bool
     Path
         ``out_dir / "index.html"``.
     """
-    import jinja2
-
     from .. import __version__
 
     target = Path(out_dir)
@@ -259,15 +251,12 @@ def write_fit_report(bf: BuildFit, out_dir: str | os.PathLike, *, hold_out: bool
             records.append({"file": Path(r.source).name, "sha256": sha,
                             "channels": ", ".join(r.names),
                             "impact": f"{imp.time:.5g} s ({imp.how})"})
-        env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
-                                 autoescape=True, undefined=jinja2.StrictUndefined)
-        page = env.get_template("fit.html").render(
-            set_id=ps.set_id, set_hash=ps.content_hash(), template_id=bf.template.set_id,
-            template_hash=bf.template.content_hash(), version=__version__,
-            created=datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-            caution=CAUTION, records=records, build_warnings=bf.warnings,
-            param_names=PARAM_NAMES, modes=modes, holdout=holdout, holdout_note=note,
-            floor=f"{FLOOR:g}")
+        page = render_page(
+            "fit.html", set_id=ps.set_id, set_hash=ps.content_hash(),
+            template_id=bf.template.set_id, template_hash=bf.template.content_hash(),
+            version=__version__, created=datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+            records=records, build_warnings=bf.warnings, param_names=PARAM_NAMES, modes=modes,
+            holdout=holdout, holdout_note=note, floor=f"{FLOOR:g}")
         (tmp / "index.html").write_text(page, encoding="utf-8")
         swap_into_place(tmp, target)
         tmp = None
