@@ -19,7 +19,7 @@ Per mode (the modes are uncoupled, so each is fitted on its own):
    is minimized (``sigma`` the noise of the analytic signal per component, so that each term is
    a unit-variance normal deviate: ``delta ln A`` and ``delta psi`` of a sine in noise both have
    variance ``sigma^2/A^2``; ``phi_r`` a per-record phase offset, solved in closed form) by
-   trust-region least squares (scipy ``least_squares``).  Processing biases cancel, and the
+   Levenberg-Marquardt least squares (:meth:`_Problem.solve`).  Processing biases cancel, and the
    transition from micro- to macro-slip, where the closed forms are several percent off, comes
    out right (physics sheet sec. 9).  The unknowns are ``f0, zeta, chi, ln R`` in micro-slip
    (any ``Kt`` share and ``beta`` give the same ring-down below the onset of macro-slip), or
@@ -27,7 +27,9 @@ Per mode (the modes are uncoupled, so each is fitted on its own):
    of every record.
 4. **Macro-slip decision**: the macro-slip model is fitted when there is a hint of it (see
    :func:`_needs_macro`) and kept when it lowers ``chi2`` significantly (likelihood-ratio test,
-   two added parameters, at the 0.1 % level: ``Delta chi2 / s^2 > 13.8``, Wilks 1938) with the
+   two added parameters, at the 0.1 % level: ``Delta chi2 / s^2 > 13.8``; S. S. Wilks, "The
+   large-sample distribution of the likelihood ratio for testing composite hypotheses", Ann. Math.
+   Statist. 9(1):60-62, 1938) with the
    onset of macro-slip inside the range of the data.  Otherwise only the micro-slip values are
    determined: the template's ``Kt`` share and ``beta`` are kept and ``Fs`` is solved from ``R``.
 5. **95 % intervals** by profile likelihood (e.g. D. J. Venzon and S. H. Moolgavkar, "A method
@@ -88,8 +90,6 @@ WIDE_MACRO = 0.10
 COLLAPSE_WARN = 0.10
 
 MICRO_NAMES = ("f0", "zeta", "chi", "lnR")
-import os
-_TRACE = bool(os.environ.get("JFIT_TRACE"))
 MACRO_NAMES = ("f0", "zeta", "chi", "lnFs", "share", "beta")
 
 
@@ -396,8 +396,6 @@ class _Problem:
             c_old, c = c, float(costs[k])
             r, J = self.jacobian(x)
             c = float(r @ r)
-            if _TRACE:
-                print("LM", self.kind, c_old, c, lams[k], np.max(np.abs(dx) / se), x[: self.p])
             if small or (c_old - c) < 1e-6 * c:
                 break
         return _Solution(x, r, J, 0.5 * c)
