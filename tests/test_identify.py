@@ -23,7 +23,7 @@ from jointfmu import (InputError, JointParams, Mode, ParameterSet, Point, Proven
                       load_parameter_set)
 from jointfmu.analysis.characterize import mode_curves
 from jointfmu.identify import process as P
-from jointfmu.identify.closed_form import fit_micro_slip, fs_from_r, micro_mode
+from jointfmu.identify.closed_form import fit_micro_slip, micro_mode
 from jointfmu.identify.fit import fit_build
 from jointfmu.identify.result import fit_json, fit_json_path, write_fit
 from jointfmu.physics.iwan import joint_constants
@@ -181,14 +181,6 @@ def test_spectral_peak():
 # ---------------------------------------------------------------------------------------------
 # closed forms
 # ---------------------------------------------------------------------------------------------
-@pytest.mark.parametrize("chi,beta", [(-0.5, 0.0), (-0.3, 0.4), (-0.8, 2.0)])
-def test_fs_from_r_inverts_segalman(chi, beta):
-    # Segalman, J. Appl. Mech. 72(5), 2005, inverse relations (physics sheet sec. 1 and 9)
-    Fs, Kt = 12.5, 4.0e5
-    R = joint_constants(Fs, Kt, chi, beta).R
-    assert fs_from_r(R, chi, Kt, beta) == pytest.approx(Fs, rel=1e-12)
-
-
 def test_closed_form_fit_recovers_exact_curves():
     # The start fits the micro-slip closed forms (physics sheet sec. 5, 9): on curves made by
     # the same closed forms it must return the values that made them.

@@ -27,8 +27,9 @@ from scipy.optimize import least_squares
 
 from ..analysis.characterize import c1_coefficient, mode_curves
 from ..params import JointParams, Mode
+from ..physics.iwan import slip_force_from_R
 
-__all__ = ["MICRO_SHARE", "ClosedFormFit", "micro_mode", "fs_from_r", "fit_micro_slip"]
+__all__ = ["MICRO_SHARE", "ClosedFormFit", "micro_mode", "fit_micro_slip"]
 
 #: Joint share of the modal stiffness used to stand for "micro-slip only" (its onset of
 #: macro-slip lies as high as the micro-slip data allow).
@@ -36,25 +37,12 @@ MICRO_SHARE = 0.95
 _TWO_PI = 2.0 * math.pi
 
 
-def fs_from_r(R: float, chi: float, Kt: float, beta: float) -> float:
-    """Slip force from Segalman's ``R`` given ``chi``, ``Kt`` and ``beta``.
-
-    Inverts ``R = (chi+1) Kt^(chi+2) (beta + a)^(chi+1) / (Fs^(chi+1) (1+beta)^(chi+2))``,
-    ``a = (chi+1)/(chi+2)`` (Segalman 2005, inverse relations; physics sheet sec. 1 and 9).
-    """
-    a = (chi + 1.0) / (chi + 2.0)
-    e = chi + 1.0
-    log_fs = (math.log(e) + (chi + 2.0) * math.log(Kt) + e * math.log(beta + a)
-              - math.log(R) - (chi + 2.0) * math.log1p(beta)) / e
-    return math.exp(log_fs)
-
-
 def micro_mode(f0: float, zeta: float, chi: float, R: float, label: str = "m",
                share: float = MICRO_SHARE, beta: float = 0.0) -> Mode:
     """A mode with these micro-slip values and a joint of the given ``Kt`` share and ``beta``
-    (``Fs`` solved from ``R`` by :func:`fs_from_r`)."""
+    (``Fs`` solved from ``R`` by :func:`jointfmu.physics.iwan.slip_force_from_R`)."""
     kt = share * (_TWO_PI * f0) ** 2
-    return Mode(label, f0, zeta, JointParams(fs_from_r(R, chi, kt, beta), kt, chi, beta))
+    return Mode(label, f0, zeta, JointParams(slip_force_from_R(R, kt, chi, beta), kt, chi, beta))
 
 
 @dataclass(frozen=True)

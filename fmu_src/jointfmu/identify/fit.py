@@ -59,10 +59,10 @@ import numpy as np
 from ..errors import InputError
 from ..params import JointParams, Mode, ParameterSet, Provenance
 from ..physics.integrate import ModalSimulator
-from ..physics.iwan import joint_constants
+from ..physics.iwan import joint_constants, slip_force_from_R
 from ..records import Record
 from . import process as P
-from .closed_form import MICRO_SHARE, ClosedFormFit, fit_micro_slip, fs_from_r
+from .closed_form import MICRO_SHARE, ClosedFormFit, fit_micro_slip
 
 __all__ = [
     "MIN_STEPS_PER_PERIOD_FIT",
@@ -256,7 +256,7 @@ class _Problem:
         if self.kind == "micro":
             f0, zeta, chi, lnR = theta
             kt = MICRO_SHARE * (_TWO_PI * f0) ** 2
-            return (f0, zeta, fs_from_r(math.exp(lnR), chi, kt, 0.0), kt, chi, 0.0)
+            return (f0, zeta, slip_force_from_R(math.exp(lnR), kt, chi, 0.0), kt, chi, 0.0)
         f0, zeta, chi, lnFs, share, beta = theta
         return (f0, zeta, math.exp(lnFs), share * (_TWO_PI * f0) ** 2, chi, beta)
 
@@ -869,7 +869,7 @@ def fit_mode(i, template: ParameterSet, band, segs, f_obs, warn_mode) -> ModeFit
         share = tm.joint.Kt / tm.omega0 ** 2
         beta = tm.joint.beta
         kt = share * w0sq
-        Fs = fs_from_r(R, chi, kt, beta)
+        Fs = slip_force_from_R(R, kt, chi, beta)
         lnr = iv.get("lnR")
         params.update({
             "Fs": {"value": Fs, "interval": None, "source": "template"},
