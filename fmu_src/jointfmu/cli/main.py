@@ -436,6 +436,8 @@ def _cmd_virtual_test(args: argparse.Namespace) -> int:
     print(f"{model.set_id}: {len(results)} records, impact at {args.impact}")
     print(format_levels(model, modes, results))
     print(f"wrote {len(paths)} files to {args.output} (simulated data: no substitute for a test)")
+    return 0
+
 
 # --- fit (identification from ring-down records, see identify/) ----------------------------------
 def _args_fit(p: argparse.ArgumentParser) -> None:
