@@ -53,6 +53,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -1057,7 +1058,8 @@ def _collapse(mf: ModeFit, prob: _Problem, x):
             worst = max(detail, key=lambda d: d["spread"])
             mf.warnings.append(
                 f"curves do not collapse: damping of the records and sensors differs from the "
-                f"fitted curve by {100 * mf.collapse:.3g} % rms (worst: {worst['record']}, "
+                f"fitted curve by {100 * mf.collapse:.3g} % rms (worst: "
+                f"{Path(worst['record']).name}, "
                 f"{worst['signal']}, {100 * worst['spread']:.3g} %): mode coupling, a sensor or "
                 "impact point that sees this mode weakly, or a joint slipping in several modes")
 
