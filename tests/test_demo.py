@@ -21,7 +21,8 @@ pytest.importorskip("matplotlib")
 import pandas as pd  # noqa: E402
 
 from jointfmu.cli import main  # noqa: E402
-from jointfmu.cli.demo import CAUTION, find_examples, run_demo  # noqa: E402
+from jointfmu.cli.demo import (CAUTION, example_campaigns, find_examples,  # noqa: E402
+                               run_demo)
 from jointfmu.errors import InputError  # noqa: E402
 from jointfmu.params import load_parameter_set  # noqa: E402
 from jointfmu.cosim.loads import LOAD_CASES  # noqa: E402
@@ -48,14 +49,41 @@ def test_demo_exits_zero_and_prints_summary_paths_and_caution(demo):
     rc, out, text = demo
     assert rc == 0, text
     assert CAUTION in text
-    for step in ("[1/6] check", "[2/6] build", "[3/6] report", "[4/6] sweep",
-                 "[5/6] linearize", "[6/6] page"):
+    for step in ("[1/7] check", "[2/7] fit", "[3/7] build", "[4/7] report", "[5/7] sweep",
+                 "[6/7] linearize", "[7/7] page"):
         assert step in text
     assert str(out / "system" / "system.html") in text
     assert str(out / "system" / "results.parquet") in text
     assert "timings:" in text
     # every ring-down of the report came from the cluster (none recomputed in this process)
     assert "ring-downs from the cluster, 0 computed here" in text
+
+
+def test_builds_fitted_from_the_shipped_records(demo):
+    """The day starts from the lab's records: each build fitted with the hand-written nominal
+    file as template (its points and shapes kept, the build id the build's own), the fit.json
+    of issue 11's format beside it, and the FMUs built from the fitted files."""
+    import json
+    import zipfile
+
+    _, out, text = demo
+    template = load_parameter_set(find_examples()[0])
+    for name, build in (("tray_nominal", "SN-0002"), ("tray_undertorqued", "SN-0003"),
+                        ("tray_worn", "SN-0002-R1")):
+        fitted = load_parameter_set(out / "fitted" / f"{name}.toml")
+        assert fitted.build == build and fitted.name == template.name
+        assert [p.shape for p in fitted.points] == [p.shape for p in template.points]
+        assert "jointfmu" in fitted.provenance.fitted_by
+        doc = json.loads((out / "fitted" / f"{name}.fit.json").read_text())
+        assert doc["format"] == "jointfmu-fit/1" and doc["parameter_file"] == f"{name}.toml"
+        assert len(doc["records"]) == 6 and len(doc["modes"]) == fitted.n_modes
+        for m, mode in zip(doc["modes"], fitted.modes):
+            assert m["params"]["f0"]["source"] == "data"
+            assert m["params"]["f0"]["value"] == pytest.approx(mode.f0, rel=1e-12)
+        with zipfile.ZipFile(out / "fmus" / f"{name}.fmu") as z:
+            info = json.loads(z.read("resources/jointfmu_build.json"))
+        assert info["content_hash"] == fitted.content_hash()
+        assert f"{build}: 6 records -> " in text
 
 
 def test_fmus_built(demo):
@@ -140,13 +168,16 @@ def test_system_page_controller_benefit(demo):
 
 def test_system_page_linear_models_against_closed_forms(demo):
     """Per build and mode: amplitude, A/phimax, frequency and damping of the exported model;
-    A/phimax with phimax from the parameter file (Segalman's inverse relation), frequency and
-    damping the first-harmonic closed forms at that amplitude (hand_closed_forms,
-    test_characterize.py), to the digits shown; the folder is where the model is."""
+    A/phimax with phimax from the (fitted) parameter file (Segalman's inverse relation), frequency
+    and damping the first-harmonic closed forms at that amplitude where it is below macro-slip
+    (hand_closed_forms, test_characterize.py), to the digits shown; the folder is where the
+    model is."""
     _, out, _ = demo
     page = (out / "system" / "system.html").read_text()
     _, rows = _rows(page, "linear-models")
-    sets = {load_parameter_set(f).build: load_parameter_set(f) for f in find_examples()}
+    fitted = sorted((out / "fitted").glob("*.toml"))
+    sets = {load_parameter_set(f).build: load_parameter_set(f) for f in fitted}
+    below = 0
     assert len(rows) == sum(ps.n_modes for ps in sets.values())
     for b, case, label, amp, ratio, freq, zeta, folder in rows:
         ps = sets[b]
@@ -154,11 +185,14 @@ def test_system_page_linear_models_against_closed_forms(demo):
         A = number(amp)
         hand = hand_closed_forms(m, [A / hand_closed_forms(m, [0.5])["phimax"]])
         assert number(ratio) == pytest.approx(A / hand["phimax"], abs=5e-4 + 2e-3 * number(ratio))
-        assert number(ratio) < 1  # the hand forms hold below macro-slip
-        assert number(freq) == pytest.approx(hand["f1"][0], abs=5e-3 + 1e-4 * number(freq))
-        assert number(zeta) == pytest.approx(hand["zeta_eq"][0], abs=5.1e-5 + 2e-3 * number(zeta))
+        if number(ratio) < 1:  # the hand forms hold below macro-slip
+            below += 1
+            assert number(freq) == pytest.approx(hand["f1"][0], abs=5e-3 + 1e-4 * number(freq))
+            assert number(zeta) == pytest.approx(hand["zeta_eq"][0],
+                                                 abs=5.1e-5 + 2e-3 * number(zeta))
         assert case in LOAD_CASES
         assert (out / "system" / folder / "metadata.json").is_file()
+    assert below >= len(rows) // 2
 
 
 def test_system_page_plots_and_caution(demo):
@@ -181,11 +215,11 @@ def test_system_page_plots_and_caution(demo):
 
 
 def test_report_of_the_three_builds(demo):
-    """The characterization report: the three builds with the files' content hashes, one
+    """The characterization report: the three fitted builds with the files' content hashes, one
     comparison row per build and mode with the file's f0, seven PNGs drawn on, the caution."""
     _, out, _ = demo
     page = (out / "report" / "index.html").read_text()
-    sets = [load_parameter_set(f) for f in find_examples()]
+    sets = [load_parameter_set(out / "fitted" / f"{f.stem}.toml") for f in find_examples()]
     _, rows = _rows(page, "builds")
     assert [r[1:3] for r in rows] == [[ps.set_id, ps.content_hash()] for ps in sets]
     _, rows = _rows(page, "comparison")
@@ -211,7 +245,7 @@ def test_linear_models_at_the_worst_case_amplitudes(demo):
 
     df = pd.read_parquet(out / "system" / "results.parquet")
     for f, slug in zip(find_examples(), ("sn-0002", "sn-0003", "sn-0002-r1")):
-        ps = load_parameter_set(f)
+        ps = load_parameter_set(out / "fitted" / f"{f.stem}.toml")
         off = df[(df["build"] == ps.build) & (~df["controller"])]
         worst = off.loc[off["tip_acc_rms"].idxmax()]
         amps = [worst[f"q_amp_{i}"] for i in range(1, ps.n_modes + 1)]
@@ -228,8 +262,8 @@ def test_linear_models_at_the_worst_case_amplitudes(demo):
 def test_rerun_reuses_the_sweep(demo, dask_local_client):
     _, out, _ = demo
     before = pd.read_parquet(out / "system" / "results.parquet")
-    res = run_demo(find_examples(), out, quick=True, client=dask_local_client, progress=False,
-                   log=lambda *a: None)
+    res = run_demo(find_examples(), out, campaigns=example_campaigns(), quick=True,
+                   client=dask_local_client, progress=False, log=lambda *a: None)
     assert res["ran"] == [] and len(res["skipped"]) == N_BUILDS * N_CASES * 2
     after = pd.read_parquet(out / "system" / "results.parquet")
     pd.testing.assert_frame_equal(before, after)   # nothing rerun, nothing rewritten

@@ -135,7 +135,8 @@ def test_installed_demo_runs_from_another_folder(installed, tmp_path):
     _, _, bin_dir, env, _ = installed
     text = _run([bin_dir / "jointfmu", "demo", "--quick", "--out", "d", "--no-progress"],
                 cwd=tmp_path, env=env, timeout=1200)
-    for step in ("[1/6] check      3 parameter sets OK", "[3/6] report", "[6/6] page"):
+    for step in ("[1/7] check      3 parameter sets OK", "[2/7] fit", "[4/7] report",
+                 "[7/7] page"):
         assert step in text
     for page in ("report/index.html", "system/system.html"):
         assert (tmp_path / "d" / page).read_text(encoding="utf-8").count(CAUTION) == 2

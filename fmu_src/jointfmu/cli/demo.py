@@ -3,15 +3,19 @@
 Steps (each is also a command of its own):
 
 1. ``jointfmu check``      validate the three builds of the avionics tray (examples/tray_*.toml);
-2. ``jointfmu build``      build their FMUs;
-3. ``jointfmu report``     characterization report comparing the builds;
-4. ``jointfmu sweep``      every build x load case x controller off/on through the co-simulation
+2. ``jointfmu fit``        fit each build from its shipped ring-down records
+   (examples/records/<build>/, a virtual campaign on the tray's discrete-joint model) with the
+   hand-written nominal file as the template: where a real day starts (``--no-fit`` skips it and
+   uses the hand-written files, ``--params`` uses the files given);
+3. ``jointfmu build``      build the FMUs of the fitted files;
+4. ``jointfmu report``     characterization report comparing the builds;
+5. ``jointfmu sweep``      every build x load case x controller off/on through the co-simulation
    system (:mod:`jointfmu.cosim.master`) on Dask (:mod:`jointfmu.cosim.sweep`); ``jointfmu
    cosim`` is one such run;
-5. ``jointfmu linearize``  equivalent-linear models for the controls team at the amplitude that
+6. ``jointfmu linearize``  equivalent-linear models for the controls team at the amplitude that
    matters: per build, the sine-equivalent modal amplitudes (sqrt(2) x RMS of each mode) of the
    load case with the largest RMS tip acceleration, controller off;
-6. system page           summary tables and plots of the sweep and of the linear models
+7. system page           summary tables and plots of the sweep and of the linear models
    (``system/system.html``, :mod:`..report.system`).
 
 The example data are invented (see examples/README.md).  A fitted model is no substitute for
@@ -25,7 +29,7 @@ import json
 import tempfile
 import time
 from contextlib import nullcontext
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from importlib import resources
 from pathlib import Path
 from typing import Sequence
@@ -81,6 +85,111 @@ def find_examples(folder=None) -> list[Path]:
     if missing:
         raise InputError(f"example file(s) missing: {', '.join(missing)}")
     return files
+
+
+#: The shipped ring-down campaigns: folder under ``examples/records`` -> the build's parameter file
+#: (its build id and FMU name are the fitted set's).  The nominal file is every fit's template.
+EXAMPLE_CAMPAIGNS = (("nominal", "tray_nominal.toml"), ("undertorqued", "tray_undertorqued.toml"),
+                     ("worn", "tray_worn.toml"))
+TEMPLATE_FILE = "tray_nominal.toml"
+
+
+@dataclass(frozen=True)
+class Campaign:
+    """The records of one build and where its fitted parameter file goes.
+
+    Attributes
+    ----------
+    records : tuple of Path
+        Ring-down records (CSV or UFF), read against ``template``.
+    template : Path
+        The parameter file whose points, shapes and f0 the fit starts from.
+    build : str
+        The fitted set's build id.
+    name : str
+        File stem of the fitted set and of its FMU.
+    """
+
+    records: tuple
+    template: Path
+    build: str
+    name: str
+
+
+def example_campaigns(folder=None) -> list[Campaign]:
+    """The shipped campaigns (:data:`EXAMPLE_CAMPAIGNS`), each build's records fitted against the
+    hand-written nominal file, the build id taken from the build's own hand-written file.
+
+    Raises
+    ------
+    InputError
+        A folder, a record set or a parameter file is missing.
+    """
+    from ..params import load_parameter_set
+
+    folder = examples_folder() if folder is None else Path(folder)
+    template = folder / TEMPLATE_FILE
+    out = []
+    for sub, params_file in EXAMPLE_CAMPAIGNS:
+        records = tuple(sorted((folder / "records" / sub).glob("*.csv")))
+        if not records:
+            raise InputError(f"no ring-down records (*.csv) in {folder / 'records' / sub}")
+        build = load_parameter_set(folder / params_file).build
+        out.append(Campaign(records, template, build, Path(params_file).stem))
+    return out
+
+
+def fit_campaign(campaign: Campaign, out_toml, report_dir=None) -> dict:
+    """Fit one build from its records (a worker task of the demo): the fitted parameter file
+    and its ``.fit.json`` at ``out_toml``, the fit report in ``report_dir`` when given.
+
+    Returns
+    -------
+    dict
+        ``toml``, ``json``, ``report`` (paths as text or None), ``set_id``, ``lines`` (what each
+        mode's records determined, one line each) and ``warnings`` (their number).
+    """
+    from ..identify.fit import fit_build
+    from ..identify.result import mode_summary, write_fit
+    from ..params import load_parameter_set
+    from ..records import read_record
+
+    template = load_parameter_set(campaign.template)
+    records = [read_record(r, template) for r in campaign.records]
+    bf = fit_build(records, template)
+    toml, jpath, ps = write_fit(bf, out_toml, campaign.build)
+    report = None
+    if report_dir is not None:
+        from ..report.fit import write_fit_report
+
+        report = str(write_fit_report(bf, report_dir))
+    n_warn = len(bf.warnings) + sum(len(m.warnings) for m in bf.modes)
+    return {"toml": str(toml), "json": str(jpath), "report": report, "set_id": ps.set_id,
+            "lines": [mode_summary(m) for m in bf.modes], "warnings": n_warn}
+
+
+def _fit_all(campaigns, out: Path, quick: bool, client, log) -> tuple[list[Path], dict]:
+    """Step 2: every campaign fitted, on the cluster (one task per build)."""
+    fit_dir = out / "fitted"
+    jobs = []
+    for cp in campaigns:
+        report = None if quick else out / "fit" / cp.name
+        jobs.append((cp, fit_dir / f"{cp.name}.toml", report))
+    if client is None:
+        results = [fit_campaign(*j) for j in jobs]
+    else:
+        futures = [client.submit(fit_campaign, *j, pure=False) for j in jobs]
+        results = client.gather(futures)
+    paths = {}
+    for cp, r in zip(campaigns, results):
+        paths[f"fitted:{cp.build}"] = Path(r["toml"])
+        if r["report"]:
+            paths[f"fit_report:{cp.build}"] = Path(r["report"])
+        log(f"       {cp.build}: {len(cp.records)} records -> {r['toml']} "
+            f"({r['warnings']} warning(s), see {Path(r['json']).name})")
+        for line in r["lines"]:
+            log(f"         {line}")
+    return [Path(r["toml"]) for r in results], paths
 
 
 # ------------------------------------------------------------------------------ helpers
@@ -389,16 +498,20 @@ def add_demo_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--workers", type=int, default=2, metavar="N",
                    help="worker processes of the local cluster (default 2)")
     p.add_argument("--params", nargs="+", default=None, metavar="PARAMS",
-                   help="parameter files instead of the shipped examples/tray_*.toml")
+                   help="parameter files instead of fitting the shipped records (no fit step)")
+    p.add_argument("--no-fit", action="store_true",
+                   help="use the hand-written example files instead of fitting the shipped records")
     p.add_argument("--no-progress", action="store_true", help="no progress bars")
 
 
 def cmd_demo(args) -> int:
     """The whole day in one command (see the module docstring)."""
     files = [Path(p) for p in args.params] if args.params else find_examples()
+    campaigns = None if (args.params or args.no_fit) else example_campaigns()
     check_output_path(args.out, "into", "--out")
-    summary = run_demo(files, args.out, quick=args.quick, scheduler=args.scheduler,
-                       n_workers=args.workers, progress=not args.no_progress)
+    summary = run_demo(files, args.out, campaigns=campaigns, quick=args.quick,
+                       scheduler=args.scheduler, n_workers=args.workers,
+                       progress=not args.no_progress)
     print(summary["text"])
     return 0
 
@@ -417,7 +530,8 @@ def _report_step(param_sets, files, out_dir: Path, quick: bool, client, progress
     return Path(page), runner
 
 
-def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
+def run_demo(param_files: Sequence[Path], out_dir, *, campaigns: Sequence[Campaign] | None = None,
+             quick: bool = False,
              scheduler: str | None = None, n_workers: int = 2, progress: bool = True,
              client=None, log=print) -> dict:
     """Run the demo; return what it wrote (paths) and a printable summary.
@@ -425,9 +539,15 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
     Parameters
     ----------
     param_files : sequence of path-like
-        The builds (default in the CLI: the shipped examples).
+        The builds (default in the CLI: the shipped examples): run as they are, or, with
+        ``campaigns``, checked and then replaced by the sets fitted from the records.
+    campaigns : sequence of Campaign, optional
+        Records to fit, one build each (:func:`example_campaigns`); the fitted files
+        (``fitted/<name>.toml``, with ``.fit.json``; reports in ``fit/<name>/`` unless ``quick``)
+        are what the rest of the demo builds and runs.
     out_dir : path-like
-        Everything goes below it: ``fmus/``, ``report/``, ``system/``, ``linear/``.
+        Everything goes below it: ``fitted/``, ``fit/``, ``fmus/``, ``report/``, ``system/``,
+        ``linear/``.
     quick : bool
         Reduced size.
     scheduler : str, optional
@@ -473,25 +593,36 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         raise InputError(f"parameter files {', '.join(map(str, files))}: build names must differ "
                          f"(got {builds_seen})")
     done("check")
-    log(f"[1/6] check      {len(files)} parameter sets OK ({', '.join(p.set_id for p in psets)})")
+    log(f"[1/7] check      {len(files)} parameter sets OK ({', '.join(p.set_id for p in psets)})")
     # the cluster first: an unreachable scheduler fails before anything is written
     ctx = nullcontext(client) if client is not None else dask_client(scheduler, n_workers)
     with ctx as c:
-        # 2. build
+        # 2. fit
+        step("fit")
+        if campaigns:
+            log(f"[2/7] fit        {len(campaigns)} builds from their ring-down records "
+                f"(template {Path(campaigns[0].template).name}):")
+            files, fit_paths = _fit_all(campaigns, out, quick, c, log)
+            paths.update(fit_paths)
+            psets = [load_parameter_set(f) for f in files]
+        else:
+            log("[2/7] fit        skipped: the parameter files are used as they are")
+        done("fit")
+        # 3. build
         step("build")
         builds = _build_all(files, out / "fmus")
         for (_, fmu) in builds:
             paths[f"fmu:{fmu.stem}"] = fmu
         done("build")
-        log(f"[2/6] build      {len(builds)} FMUs in {out / 'fmus'}")
-        # 3. report
+        log(f"[3/7] build      {len(builds)} FMUs in {out / 'fmus'}")
+        # 4. report
         step("report")
         page, runner = _report_step(psets, files, out / "report", quick, c, progress)
         paths["report"] = page
-        log(f"[3/6] report     {page}  ({runner.hits} ring-downs from the cluster, "
+        log(f"[4/7] report     {page}  ({runner.hits} ring-downs from the cluster, "
             f"{runner.misses} computed here)")
         done("report")
-        # 4. sweep
+        # 5. sweep
         step("sweep")
         settings = SystemSettings()
         sys_dir = out / "system"
@@ -504,16 +635,16 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         paths["results"] = sys_dir / "results.parquet"
         paths["histories"] = sys_dir / "histories"
         done("sweep")
-        log(f"[4/6] sweep      {len(res.ran)} runs done, {len(res.skipped)} reused "
+        log(f"[5/7] sweep      {len(res.ran)} runs done, {len(res.skipped)} reused "
             f"-> {paths['results']}")
-    # 4b. the same system as three FMUs: loads and controller FMUs to hand on, and one run
+    # 5b. the same system as three FMUs: loads and controller FMUs to hand on, and one run
     step("three_fmus")
     three = _three_fmu_check(builds[0], table, settings, quick, out / "fmus" / "system")
     paths.update(three["paths"])
     done("three_fmus")
-    log(f"[4/6] 3 FMUs     loads + controller FMUs in {out / 'fmus' / 'system'}; "
+    log(f"[5/7] 3 FMUs     loads + controller FMUs in {out / 'fmus' / 'system'}; "
         f"{three['text']}")
-    # 5. linear models
+    # 6. linear models
     step("linearize")
     by_build = {p.build: p for p in psets}
     amps = amplitudes_that_matter(table, by_build)
@@ -530,15 +661,15 @@ def run_demo(param_files: Sequence[Path], out_dir, *, quick: bool = False,
         lin_lines.append(f"  {b:<12} at {info['case']:<15} amplitudes "
                          + ", ".join(f"{a:.3g}" for a in info["amplitudes"]) + f" -> {d}")
     done("linearize")
-    log(f"[5/6] linearize  {len(amps)} equivalent-linear models in {out / 'linear'}")
-    # 6. system page
+    log(f"[6/7] linearize  {len(amps)} equivalent-linear models in {out / 'linear'}")
+    # 7. system page
     step("page")
     pp = write_system_page(table, sys_dir, sys_dir / "histories",
                            report_href="../report/index.html",
                            linear_rows=lin_rows)
     paths.update({f"system:{k}": v for k, v in pp.items()})
     done("page")
-    log(f"[6/6] page       {pp['page']}")
+    log(f"[7/7] page       {pp['page']}")
     total = time.perf_counter() - t_all
     text = "\n".join([
         "",
