@@ -33,8 +33,6 @@ exist.
 from __future__ import annotations
 
 import hashlib
-import math
-import numbers
 import re
 from dataclasses import dataclass, field, replace
 from datetime import date, datetime, time
@@ -48,9 +46,10 @@ try:  # Python >= 3.11
 except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli backport
     import tomli as _toml  # type: ignore[no-redef]
 
+from ..params.checks import (LABEL_RE as _LABEL_RE, label as _label, number as _number,
+                             required as _required, type_name as _type_name)
 from ..errors import ParameterError, Problem, did_you_mean
 from ..params import ROLES, JointParams
-from ..params.names import LABEL_PATTERN
 from ..params.rules import RULES_BY_NAME
 
 __all__ = [
@@ -72,8 +71,7 @@ __all__ = [
 FORMAT = "jointfmu-lumped/1"
 
 _PY = "<python>"
-_LABEL_RE = re.compile(rf"^{LABEL_PATTERN}$")   # labels become record channel names
-_LABEL_RULE = "must match ^[A-Za-z][A-Za-z0-9_]*$ (a letter, then letters, digits or '_')"
+
 
 _TOP_KEYS = ("format", "structure", "base", "dofs", "springs", "joints", "damping", "modes",
              "points", "builds")
@@ -112,33 +110,6 @@ def _joint_value(name: str, x: Any, file: str, fld: str, problems: list[Problem]
 # ---------------------------------------------------------------------------------------------
 # small checkers: each records a Problem and returns None when the value is not acceptable
 # ---------------------------------------------------------------------------------------------
-def _type_name(x: Any) -> str:
-    if isinstance(x, bool):
-        return "a boolean"
-    if isinstance(x, str):
-        return "a string"
-    if isinstance(x, (list, tuple)):
-        return "an array"
-    if isinstance(x, Mapping):
-        return "a table"
-    if isinstance(x, (datetime, date, time)):
-        return "a date/time"
-    if isinstance(x, numbers.Real):
-        return "a number"
-    return f"a {type(x).__name__}"
-
-
-def _number(x: Any, file: str, fld: str, unit: str, problems: list[Problem]) -> float | None:
-    if not isinstance(x, numbers.Real) or isinstance(x, bool):
-        problems.append(Problem(file, fld, x, f"must be a finite number{unit}, got {_type_name(x)}"))
-        return None
-    v = float(x)
-    if not math.isfinite(v):
-        problems.append(Problem(file, fld, x, f"must be a finite number{unit} (not NaN or infinity)"))
-        return None
-    return v + 0.0
-
-
 def _ranged(x: Any, file: str, fld: str, unit: str, rule: str, ok, problems: list[Problem],
             hint: str = "") -> float | None:
     v = _number(x, file, fld, unit, problems)
@@ -146,16 +117,6 @@ def _ranged(x: Any, file: str, fld: str, unit: str, rule: str, ok, problems: lis
         problems.append(Problem(file, fld, x, rule, hint))
         return None
     return v
-
-
-def _label(x: Any, file: str, fld: str, problems: list[Problem]) -> str | None:
-    if not isinstance(x, str):
-        problems.append(Problem(file, fld, x, f"{_LABEL_RULE}, got {_type_name(x)}"))
-        return None
-    if not _LABEL_RE.match(x):
-        problems.append(Problem(file, fld, x, _LABEL_RULE))
-        return None
-    return x
 
 
 def _text(x: Any, file: str, fld: str, problems: list[Problem], nonempty: bool = False) -> str | None:
@@ -177,14 +138,6 @@ def _keys(table: Mapping[str, Any], allowed: tuple[str, ...], where: str, prefix
             problems.append(Problem(file, f"{prefix}{key}", table[key],
                                     f"unknown key in {where}; allowed keys: {', '.join(allowed)}",
                                     did_you_mean(key, allowed)))
-
-
-def _required(t: Mapping[str, Any], key: str, file: str, fld: str, what: str,
-              problems: list[Problem]) -> Any:
-    if key not in t:
-        problems.append(Problem(file, fld, None, f"missing required key {key!r} ({what})"))
-        return None
-    return t[key]
 
 
 def _raise(problems: list[Problem]) -> None:

@@ -41,8 +41,14 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
         _toml = None  # type: ignore[assignment]
 
 from ..fileio import atomic_write
+from .checks import LABEL_RE as _LABEL_RE
+from .checks import is_number as _is_number
+from .checks import label as _label
+from .checks import number as _number
+from .checks import required as _required
+from .checks import type_name as _type_name
 from ..errors import ParameterError, Problem, did_you_mean
-from .names import LABEL_PATTERN, mode_prefix
+from .names import mode_prefix
 from .rules import MODE_VALUE_RULES, RULES_BY_NAME, short_number
 
 __all__ = [
@@ -69,8 +75,7 @@ ROLES = ("input", "output", "both")
 #: Names accepted by :meth:`ParameterSet.with_mode_values` (and by FMU parameters).
 MODE_VALUE_NAMES = tuple(r.name for r in MODE_VALUE_RULES)
 
-_LABEL_RE = re.compile(f"^{LABEL_PATTERN}$")
-_LABEL_RULE = "must match ^[A-Za-z][A-Za-z0-9_]*$ (a letter, then letters, digits or '_')"
+
 _LABEL_WHAT = "a label: a letter, then letters, digits or '_'"
 _TWO_PI = 2.0 * math.pi
 _PYTHON = "<python>"  # the "file" of a dataclass built directly in Python
@@ -99,36 +104,6 @@ _HEADER = """\
 def _g(x: float) -> str:
     """Format a number with 3 significant digits, exponent without '+' or leading zeros."""
     return short_number(x)
-
-
-def _type_name(x: Any) -> str:
-    if isinstance(x, bool):
-        return "a boolean"
-    if isinstance(x, str):
-        return "a string"
-    if isinstance(x, (list, tuple)):
-        return "an array"
-    if isinstance(x, dict):
-        return "a table"
-    if isinstance(x, (datetime, date, time)):
-        return "a date/time"
-    return f"a {type(x).__name__}"
-
-
-def _is_number(x: Any) -> bool:
-    return isinstance(x, numbers.Real) and not isinstance(x, bool)
-
-
-def _number(x: Any, file: str, fld: str, unit: str, problems: list[Problem]) -> float | None:
-    """Return ``x`` as a finite float, or record why not and return None."""
-    if not _is_number(x):
-        problems.append(Problem(file, fld, x, f"must be a finite number{unit}, got {_type_name(x)}"))
-        return None
-    v = float(x)
-    if not math.isfinite(v):
-        problems.append(Problem(file, fld, x, f"must be a finite number{unit} (not NaN or infinity)"))
-        return None
-    return v + 0.0  # folds -0.0 to 0.0 so equal sets hash equal
 
 
 def _check_keys(table: Mapping[str, Any], allowed: tuple[str, ...], where: str, prefix: str,
@@ -198,16 +173,6 @@ def _character_name(ch: str) -> str:
     if ord(ch) in (0xFFFE, 0xFFFF):
         return "a noncharacter"
     return "a control character"
-
-
-def _label(x: Any, file: str, fld: str, problems: list[Problem]) -> str | None:
-    if not isinstance(x, str):
-        problems.append(Problem(file, fld, x, f"{_LABEL_RULE}, got {_type_name(x)}"))
-        return None
-    if not _LABEL_RE.match(x):
-        problems.append(Problem(file, fld, x, _LABEL_RULE))
-        return None
-    return x
 
 
 # --------------------------------------------------------------------------------------------
@@ -893,14 +858,6 @@ def _table(d: Mapping[str, Any], key: str, file: str, problems: list[Problem], *
         problems.append(Problem(file, key, t, f"must be a table [{key}], got {_type_name(t)}"))
         return None
     return t
-
-
-def _required(t: Mapping[str, Any], key: str, file: str, fld: str, what: str,
-              problems: list[Problem]) -> Any:
-    if key not in t:
-        problems.append(Problem(file, fld, None, f"missing required key {key!r} ({what})"))
-        return None
-    return t[key]
 
 
 def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> ParameterSet:
