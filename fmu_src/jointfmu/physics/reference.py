@@ -2,7 +2,7 @@
 
 This is the yardstick for the fixed-step core and the FMU, so it is written independently of them:
 the backbone, the Masing branches and the reversal memory are implemented here again, from the
-physics sheet (``/work/shared/physics.md``), and only NumPy and SciPy are used.
+project's physics sheet (``physics.md``), and only NumPy and SciPy are used.
 
 Each mode (mass-normalized modal coordinate ``q``) obeys::
 
@@ -86,6 +86,10 @@ class _Iwan:
 
 def iwan_constants(Fs: float, Kt: float, chi: float, beta: float) -> dict[str, float]:
     """Derived constants of the four-parameter Iwan model.
+
+    Kept here on purpose, beside :func:`jointfmu.physics.iwan.joint_constants` (the one the core,
+    the kernel and the analysis share): the reference re-derives Segalman's inversion on its own so
+    that it stays an independent check of them.
 
     Segalman, "A four-parameter Iwan model for lap-type joints", J. Appl. Mech. 72(5), 2005
     (inverse relations as on the physics sheet, sec. 1, [pub, recalled]).
