@@ -58,6 +58,7 @@ from pathlib import Path
 import numpy as np
 
 from . import kernel as _K
+from .iwan import kernel_table
 
 __all__ = ["NAME", "advance", "joint_move", "joint_set_virgin", "step_all", "step_planned", "undo",
            "refresh", "CACHE_FILE", "cache_dir_candidates", "bind", "compile_source", "jit_footer",
@@ -248,27 +249,10 @@ def _self_check(mod) -> None:
     first call; the C entry (:func:`c_step_entry`) when the FMU's binary asks for it.
     """
     n, cap = 2, 6
-    jc = np.zeros((n, _K.NJC))
-    # two arbitrary joints in the kernel's own constants (chi = -0.5, beta = 0.2 and chi = -0.3,
-    # beta = 0): built as integrate._joint_constants does, Segalman 2005 inverse relations
-    for i, (fs, kt, chi, beta, kinf) in enumerate(((1.0, 4.0, -0.5, 0.2, 30.0),
-                                                   (2.0, 9.0, -0.3, 0.0, 60.0))):
-        a = (chi + 1.0) / (chi + 2.0)
-        phimax = fs * (1.0 + beta) / (kt * (beta + a))
-        R = fs * (chi + 1.0) / (phimax ** (chi + 2.0) * (beta + a))
-        pm = phimax ** (chi + 2.0)
-        jc[i, _K.KT], jc[i, _K.FS], jc[i, _K.CHI], jc[i, _K.PHIMAX] = kt, fs, chi, phimax
-        jc[i, _K.CF] = R / ((chi + 1.0) * (chi + 2.0))
-        jc[i, _K.CD] = R / ((chi + 2.0) * (chi + 3.0))
-        jc[i, _K.CUV] = R / ((chi + 1.0) * (chi + 3.0))
-        jc[i, _K.CK] = R / (chi + 1.0)
-        jc[i, _K.E2] = chi + 2.0
-        jc[i, _K.CKC] = -jc[i, _K.CK] * (jc[i, _K.E2] - 1.0)
-        jc[i, _K.DVPM] = jc[i, _K.CD] * phimax * pm
-        jc[i, _K.UVPM] = 0.5 * kt * phimax**2 - jc[i, _K.CUV] * phimax * pm
-        jc[i, _K.MERGE_TOL] = (1e-2 if i == 0 else 0.0) * fs  # large: merges happen
-        jc[i, _K.KINF] = kinf
-        jc[i, _K.SPOINT] = beta * kt / (1.0 + beta)
+    # two arbitrary joints (chi = -0.5, beta = 0.2 and chi = -0.3, beta = 0); joint 0 with a
+    # large merge tolerance, so that merges happen
+    jc = np.vstack([kernel_table([1.0], [4.0], [-0.5], [0.2], [30.0], 1e-2),
+                    kernel_table([2.0], [9.0], [-0.3], [0.0], [60.0], 0.0)])
     # coefficients of a crude explicit step are enough to exercise the code: with this force both
     # joints reverse, wipe out loops, fill the small stack (forced merges); joint 0 also merges
     # under its tolerance, joint 1 reaches macro-slip
