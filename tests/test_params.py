@@ -849,3 +849,14 @@ def test_names_refuse_what_is_not_a_name(name):
     from jointfmu.params import names
 
     assert names.parse_name(name) is None
+
+
+def test_a_discrete_joint_file_given_as_parameter_file_is_one_line():
+    """A jointfmu file of another format (here the discrete-joint tray) is named once, with the
+    command that writes its parameter file, not key by key."""
+    with pytest.raises(ParameterError) as exc:
+        load_parameter_set(ROOT / "examples" / "tray_lumped.toml")
+    assert len(exc.value.problems) == 1
+    p = exc.value.problems[0]
+    assert p.field == "format" and p.value == "jointfmu-lumped/1"
+    assert "jointfmu modes FILE -o TEMPLATE.toml" in str(exc.value)

@@ -48,7 +48,7 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
 
 from ..params.checks import (LABEL_RE as _LABEL_RE, label as _label, number as _number,
                              required as _required, type_name as _type_name)
-from ..errors import ParameterError, Problem, did_you_mean
+from ..errors import InputError, ParameterError, Problem, did_you_mean
 from ..params import ROLES, JointParams
 from ..params.rules import RULES_BY_NAME
 
@@ -740,14 +740,15 @@ class LumpedModel:
         raise KeyError(label)
 
     def point(self, label: str) -> LumpedPoint:
-        """The point named ``label``; ParameterError naming the allowed labels if there is none."""
+        """The point named ``label``; InputError naming the file and the allowed labels if there
+        is none (a label asked for, e.g. ``--impact``, not a problem of the file)."""
         for pt in self.points:
             if pt.label == label:
                 return pt
         allowed = [pt.label for pt in self.points]
-        raise ParameterError([Problem(self.source, "points", label,
-                                      "unknown point; allowed: " + (", ".join(allowed) or "(none)"),
-                                      did_you_mean(label, allowed))])
+        hint = did_you_mean(label, allowed)
+        raise InputError(f"point {label!r} of {self.source}: unknown point; "
+                         f"allowed: {', '.join(allowed) or '(none)'}" + (f" ({hint})" if hint else ""))
 
     @property
     def input_points(self) -> tuple[LumpedPoint, ...]:

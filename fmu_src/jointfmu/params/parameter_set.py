@@ -879,6 +879,15 @@ def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> Para
     f = source
     if not isinstance(data, Mapping):
         _raise([Problem(f, "(top level)", data, f"must be a table, got {_type_name(data)}")])
+    other = data.get("format")
+    if (isinstance(other, str) and other.startswith("jointfmu-")
+            and not other.startswith("jointfmu-params/")):
+        # another jointfmu file (a discrete-joint structure, a fit result...): one line, not a
+        # problem for every key the two formats do not share
+        hint = ("`jointfmu modes FILE -o TEMPLATE.toml` writes the parameter file of a "
+                "discrete-joint structure" if other.startswith("jointfmu-lumped/") else "")
+        _raise([Problem(f, "format", other, f"a parameter file is format {FORMAT!r}; this file "
+                        f"is another kind of jointfmu file", hint)])
     _check_keys(data, _TOP_KEYS, "the top level", "", f, problems)
 
     if "format" not in data:
