@@ -33,7 +33,6 @@ exist.
 from __future__ import annotations
 
 import hashlib
-import re
 from dataclasses import dataclass, field, replace
 from datetime import date, datetime, time
 from pathlib import Path
@@ -47,7 +46,8 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
     import tomli as _toml  # type: ignore[no-redef]
 
 from ..params.checks import (LABEL_RE as _LABEL_RE, label as _label, number as _number,
-                             required as _required, type_name as _type_name)
+                             required as _required, toml_table as _toml_table,
+                             type_name as _type_name)
 from ..errors import InputError, ParameterError, Problem, did_you_mean
 from ..params import ROLES, JointParams
 from ..params.rules import RULES_BY_NAME
@@ -1125,26 +1125,7 @@ def _read(path: Path, problems: list[Problem]) -> tuple[dict | None, str]:
                                 "give the path of a jointfmu-lumped/1 .toml file"))
         return None, ""
     digest = hashlib.sha256(raw).hexdigest()
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as e:
-        problems.append(Problem(file, "(file)", f"byte {e.start}",
-                                "cannot be read: not UTF-8 text (TOML files are UTF-8)"))
-        return None, digest
-    try:
-        return _toml.loads(text), digest
-    except _toml.TOMLDecodeError as e:
-        msg = str(e)
-        m = re.search(r"line (\d+)", msg)
-        line_text = ""
-        if m:
-            lines = text.splitlines()
-            n = int(m.group(1))
-            if 1 <= n <= len(lines):
-                line_text = lines[n - 1]
-        problems.append(Problem(file, f"line {m.group(1)}" if m else "(TOML syntax)", line_text,
-                                f"TOML syntax error: {msg}"))
-        return None, digest
+    return _toml_table(raw, file, problems), digest
 
 
 def load_lumped(path, build: str | None = None) -> LumpedModel:

@@ -10,10 +10,19 @@ from collections.abc import Mapping
 from datetime import date, datetime, time
 from typing import Any
 
+try:
+    import tomllib as _toml
+except ModuleNotFoundError:  # pragma: no cover - Python < 3.11
+    try:
+        import tomli as _toml  # type: ignore[no-redef]
+    except ModuleNotFoundError:
+        _toml = None  # type: ignore[assignment]  (the readers say what is missing)
+
 from ..errors import Problem
 from .names import LABEL_PATTERN
 
-__all__ = ["LABEL_RE", "LABEL_RULE", "type_name", "is_number", "number", "label", "required"]
+__all__ = ["LABEL_RE", "LABEL_RULE", "type_name", "is_number", "number", "label", "required",
+           "toml_table"]
 
 LABEL_RE = re.compile(f"^{LABEL_PATTERN}$")
 LABEL_RULE = "must match ^[A-Za-z][A-Za-z0-9_]*$ (a letter, then letters, digits or '_')"
@@ -69,3 +78,28 @@ def required(t: Mapping[str, Any], key: str, file: str, fld: str, what: str,
         problems.append(Problem(file, fld, None, f"missing required key {key!r} ({what})"))
         return None
     return t[key]
+
+
+def toml_table(raw: bytes, file: str, problems: list[Problem]) -> dict | None:
+    """The TOML document in ``raw`` (UTF-8), or record why not (the line of a syntax error named,
+    with its text) and return None."""
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        problems.append(Problem(file, "(file)", f"byte {e.start}",
+                                "cannot be read: not UTF-8 text (TOML files are UTF-8)"))
+        return None
+    try:
+        return _toml.loads(text)
+    except _toml.TOMLDecodeError as e:
+        msg = str(e)
+        m = re.search(r"line (\d+)", msg)
+        line_text = ""
+        if m:
+            lines = text.splitlines()
+            n = int(m.group(1))
+            if 1 <= n <= len(lines):
+                line_text = lines[n - 1]
+        problems.append(Problem(file, f"line {m.group(1)}" if m else "(TOML syntax)", line_text,
+                                f"TOML syntax error: {msg}"))
+        return None

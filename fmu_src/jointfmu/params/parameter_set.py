@@ -26,7 +26,6 @@ import json
 import math
 import numbers
 import os
-import re
 from dataclasses import dataclass, field, replace
 from datetime import date, datetime, time
 from pathlib import Path
@@ -46,6 +45,7 @@ from .checks import is_number as _is_number
 from .checks import label as _label
 from .checks import number as _number
 from .checks import required as _required
+from .checks import toml_table as _toml_table
 from .checks import type_name as _type_name
 from ..errors import ParameterError, Problem, did_you_mean
 from .names import mode_prefix
@@ -1098,26 +1098,7 @@ def _read_toml(path: Path, problems: list[Problem]) -> dict[str, Any] | None:
         problems.append(Problem(file, "(file)", file,
                                 f"cannot be read: {e.strerror or e}", "give the path of a .toml file"))
         return None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as e:
-        problems.append(Problem(file, "(file)", f"byte {e.start}",
-                                "cannot be read: not UTF-8 text (TOML files are UTF-8)"))
-        return None
-    try:
-        return _toml.loads(text)
-    except _toml.TOMLDecodeError as e:
-        msg = str(e)
-        m = re.search(r"line (\d+)", msg)
-        line_text = ""
-        if m:
-            lines = text.splitlines()
-            n = int(m.group(1))
-            if 1 <= n <= len(lines):
-                line_text = lines[n - 1]
-        problems.append(Problem(file, f"line {m.group(1)}" if m else "(TOML syntax)", line_text,
-                                f"TOML syntax error: {msg}"))
-        return None
+    return _toml_table(raw, file, problems)
 
 
 def load_parameter_set(path: str | os.PathLike) -> ParameterSet:
