@@ -46,7 +46,7 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10 with the tomli bac
     import tomli as _toml  # type: ignore[no-redef]
 
 from ..params.checks import (LABEL_RE as _LABEL_RE, label as _label, number as _number,
-                             required as _required, toml_table as _toml_table,
+                             required as _required, table as _table, toml_table as _toml_table,
                              type_name as _type_name)
 from ..errors import InputError, ParameterError, Problem, did_you_mean
 from ..params import ROLES, JointParams
@@ -832,19 +832,6 @@ class LumpedModel:
 # ---------------------------------------------------------------------------------------------
 # parsing
 # ---------------------------------------------------------------------------------------------
-def _table(d: Mapping[str, Any], key: str, file: str, problems: list[Problem],
-           required: bool) -> Mapping[str, Any] | None:
-    if key not in d:
-        if required:
-            problems.append(Problem(file, key, None, f"missing required table [{key}]"))
-        return None
-    t = d[key]
-    if not isinstance(t, Mapping):
-        problems.append(Problem(file, key, t, f"must be a table [{key}], got {_type_name(t)}"))
-        return None
-    return t
-
-
 def _array_of_tables(d: Mapping[str, Any], key: str, file: str, problems: list[Problem],
                      required: bool) -> list[Mapping[str, Any]]:
     if key not in d:

@@ -22,7 +22,7 @@ from ..errors import Problem
 from .names import LABEL_PATTERN
 
 __all__ = ["LABEL_RE", "LABEL_RULE", "type_name", "is_number", "number", "label", "required",
-           "toml_table"]
+           "table", "toml_table"]
 
 LABEL_RE = re.compile(f"^{LABEL_PATTERN}$")
 LABEL_RULE = "must match ^[A-Za-z][A-Za-z0-9_]*$ (a letter, then letters, digits or '_')"
@@ -78,6 +78,20 @@ def required(t: Mapping[str, Any], key: str, file: str, fld: str, what: str,
         problems.append(Problem(file, fld, None, f"missing required key {key!r} ({what})"))
         return None
     return t[key]
+
+
+def table(d: Mapping[str, Any], key: str, file: str, problems: list[Problem], *,
+          required: bool) -> Mapping[str, Any] | None:
+    """The TOML table ``d[key]``, or record that it is missing (when ``required``) or not a table."""
+    if key not in d:
+        if required:
+            problems.append(Problem(file, key, None, f"missing required table [{key}]"))
+        return None
+    t = d[key]
+    if not isinstance(t, Mapping):
+        problems.append(Problem(file, key, t, f"must be a table [{key}], got {type_name(t)}"))
+        return None
+    return t
 
 
 def toml_table(raw: bytes, file: str, problems: list[Problem]) -> dict | None:

@@ -45,6 +45,7 @@ from .checks import is_number as _is_number
 from .checks import label as _label
 from .checks import number as _number
 from .checks import required as _required
+from .checks import table as _table
 from .checks import toml_table as _toml_table
 from .checks import type_name as _type_name
 from ..errors import ParameterError, Problem, did_you_mean
@@ -847,19 +848,6 @@ def save_parameter_set(pset: ParameterSet, path: str | os.PathLike) -> Path:
 # --------------------------------------------------------------------------------------------
 # parsing
 # --------------------------------------------------------------------------------------------
-def _table(d: Mapping[str, Any], key: str, file: str, problems: list[Problem], *,
-           required: bool) -> Mapping[str, Any] | None:
-    if key not in d:
-        if required:
-            problems.append(Problem(file, key, None, f"missing required table [{key}]"))
-        return None
-    t = d[key]
-    if not isinstance(t, Mapping):
-        problems.append(Problem(file, key, t, f"must be a table [{key}], got {_type_name(t)}"))
-        return None
-    return t
-
-
 def parse_parameter_set(data: Mapping[str, Any], source: str = "<dict>") -> ParameterSet:
     """Build a :class:`ParameterSet` from a dict in the TOML layout, checking everything.
 
